@@ -1,0 +1,69 @@
+// seatilt/diagnostics.hpp — kinematic diagnostics of a horizontal velocity field.
+//
+// Owns: speed, relative vorticity, normal and shear strain, total strain and
+// the Okubo–Weiss parameter on the sphere or ellipsoid, with their metric
+// terms. Does not own u, v (kernel.hpp) or I/O.
+//
+// Method (orthogonal curvilinear coordinates on the ellipsoid; u east, v
+// north; N replaces R in lambda-derivatives and tan(phi) terms, M in phi-
+// derivatives; REFERENCES.md §6, e.g. [1] §2 for the spherical forms):
+//   zeta = (1/(N cos phi)) dv/dlambda - (1/M) du/dphi + u tan(phi)/N     (s-1)
+//   sn   = (1/(N cos phi)) du/dlambda - (1/M) dv/dphi - v tan(phi)/N     (s-1)
+//   ss   = (1/(N cos phi)) dv/dlambda + (1/M) du/dphi + u tan(phi)/N     (s-1)
+//   strain = sqrt(sn^2 + ss^2)                                           (s-1)
+//   W = sn^2 + ss^2 - zeta^2   (Okubo 1970 [2]; Weiss 1991 [3])          (s-2)
+//   speed = sqrt(u^2 + v^2)                                              (m s-1)
+// Solid-body rotation about any axis has zero strain; the metric terms are
+// what make that true (tested).
+//
+// References
+//  [1] G. K. Vallis (2017), Atmospheric and Oceanic Fluid Dynamics, 2nd ed.,
+//      Cambridge University Press, ch. 2 (equations on the sphere).
+//  [2] A. Okubo (1970), Horizontal dispersion of floatable particles in the
+//      vicinity of velocity singularities such as convergences, Deep-Sea Res.
+//      17, 445-454.
+//  [3] J. Weiss (1991), The dynamics of enstrophy transfer in two-dimensional
+//      hydrodynamics, Physica D 48, 273-294.
+//
+// Accuracy: the stencil's truncation error (kernel.hpp).
+#pragma once
+
+#include <cstddef>
+#include <cstdint>
+#include <vector>
+
+#include "seatilt/grid.hpp"
+#include "seatilt/kernel.hpp"
+
+namespace seatilt {
+
+/// Diagnostics for a band of rows; each Field is n x nx, NaN where undefined.
+struct Kinematics {
+  Field speed, vorticity, strain_normal, strain_shear, strain, okubo_weiss;
+};
+
+/// Computes Kinematics from u, v with the stencil ladder of kernel.hpp.
+class KinematicsKernel {
+public:
+  /// ORDER 2, 4, 6 and COAST as for the velocities; EARTH selects M, N.
+  KinematicsKernel(const Grid& grid, int order, CoastMethod coast, EarthModel earth);
+
+  /// Rows of u, v needed above and below the output rows.
+  [[nodiscard]] std::size_t halo_rows() const;
+
+  /// Computes diagnostics for global rows [j0, j0 + n) from U, V (m s-1, NaN
+  /// where masked) holding global rows [b0, b0 + u.ny) (must cover the halo
+  /// within the grid; std::logic_error otherwise). Cells whose u or v is NaN
+  /// stay NaN; a cell whose derivatives needed a shortened stencil gets
+  /// quality::one_sided OR-ed into FLAGS (n * nx, as produced by the kernel);
+  /// a cell with no usable stencil gets NaN diagnostics (u, v kept).
+  void compute(const Field& u, const Field& v, std::size_t b0, std::size_t j0, std::size_t n,
+               Kinematics& out, std::vector<std::uint8_t>& flags) const;
+
+private:
+  const Grid& grid_;
+  Differentiator diff_;
+  std::vector<double> inv_m_, inv_ncos_, tan_over_n_;
+};
+
+}  // namespace seatilt

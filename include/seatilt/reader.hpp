@@ -1,0 +1,175 @@
+// seatilt/reader.hpp — netCDF sea-surface-height input.
+//
+// Owns: opening a netCDF file (classic, 64-bit offset, netCDF-4/HDF5),
+// detecting the height variable and its latitude/longitude/time coordinates
+// by CF rules, unpacking (scale_factor, add_offset), honouring _FillValue,
+// missing_value, valid_min/valid_max/valid_range, converting heights to
+// metres with UDUNITS-2, and decoding CF time to calendar dates. Hands out
+// rows of one time step as doubles in metres with NaN for missing cells, in
+// the file's own row/column order. Does not own metric terms (grid.hpp) or
+// any arithmetic beyond unpacking and unit conversion.
+//
+// Detection order for the height variable:
+//   1. --variable NAME (error if absent);
+//   2. the one variable whose standard_name is a CF sea-surface-height name:
+//        sea_surface_height_above_geoid                 -> absolute
+//        sea_surface_height_above_geopotential_datum    -> absolute
+//        sea_surface_height_above_mean_sea_level        -> anomaly
+//        sea_surface_height_above_sea_level, sea_surface_height -> anomaly
+//      sea_surface_height_above_reference_ellipsoid is refused (it includes the
+//      geoid, ~±100 m, so its slopes are not geostrophic);
+//   3. otherwise an InputError listing the candidates (2-D/3-D float-or-integer
+//      variables on the lat/lon dimensions) or saying that there are none.
+// A variable chosen by --variable without a CF height standard_name is
+// treated as an anomaly when its name or long_name says "anomaly"/"sla",
+// otherwise as absolute; the reason is recorded in HeightInfo::kind_reason.
+//
+// Coordinates: a 1-D variable is latitude when its units are degrees_north
+// (or degree_north, degree_N, degrees_N, degreeN, degreesN), or its
+// standard_name is "latitude", or axis="Y" with degree units; likewise
+// longitude with degrees_east / "longitude" / axis="X". Time: standard_name
+// "time" or axis="T" or units "<unit> since <date>". Accepted layouts of the
+// height variable: (lat, lon) and (time, lat, lon); any other order or any
+// other dimension of size > 1 is an InputError naming the dimensions. Extra
+// leading dimensions of size 1 (e.g. depth=1) are accepted and dropped.
+//
+// References
+//  [1] CF Conventions 1.12, sections 3.3 (standard names), 3.5 (flags),
+//      4.1-4.4 (coordinates, time, calendars), 8.1 (packed data), 2.5.1
+//      (missing data: _FillValue, missing_value, valid_*).
+//  [2] UDUNITS-2 2.2.28 C API (ut_read_xml, ut_parse, ut_get_converter).
+//
+// Thread safety: netCDF-C is not thread-safe; use one Reader from one
+// thread at a time. UDUNITS parsing is serialised internally.
+#pragma once
+
+#include <cstddef>
+#include <memory>
+#include <optional>
+#include <string>
+#include <variant>
+#include <vector>
+
+#include "seatilt/grid.hpp"
+
+namespace seatilt {
+
+/// A netCDF attribute, copied so that the writer can reproduce it.
+struct Attribute {
+  std::string name;
+  int nc_type = 0;  ///< NC_CHAR/NC_STRING for text, else the numeric nc_type
+  std::string text;            ///< when nc_type is NC_CHAR or NC_STRING (string arrays joined with ", ")
+  std::vector<double> values;  ///< numeric values otherwise (exact for all but 64-bit ints > 2^53)
+};
+
+/// A 1-D coordinate variable with its attributes.
+struct CoordVar {
+  std::string name;   ///< variable name in the file
+  std::string dim;    ///< its dimension name
+  int nc_type = 0;    ///< storage type in the file (NC_FLOAT, NC_DOUBLE, ...)
+  std::vector<double> values;  ///< unpacked values
+  std::vector<Attribute> attrs;
+};
+
+/// Whether heights are absolute (above the geoid) or an anomaly (above a mean sea level).
+enum class HeightKind { absolute, anomaly };
+
+/// A date and time decoded from a CF time value (calendar-aware).
+struct CivilTime {
+  int year = 0, month = 1, day = 1, hour = 0, minute = 0;
+  double second = 0.0;
+  /// Formats as ISO 8601 "YYYY-MM-DDThh:mm:ssZ" (seconds rounded to 1 s,
+  /// carrying into minutes and hours; within half a second before midnight
+  /// the seconds are cut instead, since a day carry needs the calendar).
+  /// Negative years print with a leading "-" ("-0001-12-31T00:00:00Z").
+  [[nodiscard]] std::string iso() const;
+};
+
+/// Everything the reader found out about an input, before any data is read.
+struct HeightInfo {
+  std::string path;            ///< file as given
+  std::string format;          ///< "netCDF-4", "netCDF-4 classic model", "classic", "64-bit offset", "CDF5"
+  std::string variable;        ///< chosen height variable
+  std::string chosen_because;  ///< e.g. "standard_name sea_surface_height_above_geoid" or "--variable"
+  HeightKind kind = HeightKind::absolute;
+  std::string kind_reason;     ///< why absolute/anomaly
+  std::string standard_name;   ///< of the height variable ("" when absent)
+  std::string long_name;
+  std::string units;           ///< units as found (or as overridden)
+  bool units_overridden = false;
+  double to_metres_scale = 1.0;   ///< metres = value * scale + offset (UDUNITS converter)
+  double to_metres_offset = 0.0;
+  bool packed = false;            ///< scale_factor/add_offset present
+  double scale_factor = 1.0, add_offset = 0.0;
+  int storage_type = 0;           ///< nc_type of the stored variable
+  /// _FillValue (packed units); without the attribute, the netCDF default
+  /// fill of the storage type (netcdf.h NC_FILL_*; none for byte types).
+  std::optional<double> fill_value;
+  std::vector<double> missing_values;     ///< missing_value (packed units)
+  std::optional<double> valid_min, valid_max;  ///< packed units
+  CoordVar lat, lon;
+  std::optional<CoordVar> time;   ///< present when the variable has a time dimension
+  std::string calendar;           ///< CF calendar of time ("standard" when absent)
+  std::size_t nt = 1, ny = 0, nx = 0;  ///< nt = 1 without time
+  std::vector<Attribute> global_attrs;
+  std::vector<Attribute> variable_attrs;  ///< of the height variable
+};
+
+/// Options given to the reader from the command line or a job file.
+struct ReaderOptions {
+  std::string variable;  ///< --variable ("" = detect)
+  std::string units;     ///< --units ("" = from the file)
+};
+
+/// Reads heights from one netCDF file. Move-only; closes the file on destruction.
+class Reader {
+public:
+  /// Opens PATH and detects variable, coordinates, units and packing.
+  /// Throws InputError ("PATH: variable V: problem") when the file cannot be
+  /// opened (missing, truncated, not netCDF), no or several candidate height
+  /// variables exist, the standard_name is the ellipsoidal height, units are
+  /// missing/unparsable/not a length, coordinates are missing, non-monotonic
+  /// or non-finite, or the layout is unsupported.
+  Reader(const std::string& path, const ReaderOptions& options);
+  ~Reader();
+  Reader(Reader&&) noexcept;
+  Reader& operator=(Reader&&) noexcept;
+  Reader(const Reader&) = delete;
+  Reader& operator=(const Reader&) = delete;
+
+  /// Returns what was detected.
+  [[nodiscard]] const HeightInfo& info() const;
+
+  /// Reads rows [j0, j0+nrows) of time step t (t = 0 without time) into
+  /// OUT (resized to nrows x nx): metres, NaN where missing (fill,
+  /// missing_value, outside valid range, or NaN/Inf in the file).
+  /// Throws InputError on a netCDF read failure (e.g. truncated data);
+  /// std::out_of_range when t >= nt or the rows exceed ny (a caller bug).
+  /// nrows = 0 gives an empty OUT.
+  void read_rows(std::size_t t, std::size_t j0, std::size_t nrows, Field& out);
+
+  /// Returns the calendar date of time step t; throws InputError for an
+  /// unknown calendar or undecodable units. Without time, throws InputError;
+  /// std::out_of_range when t >= nt.
+  [[nodiscard]] CivilTime date(std::size_t t) const;
+
+private:
+  struct Impl;
+  std::unique_ptr<Impl> impl_;
+};
+
+/// Decodes a CF time value: VALUE in UNITS ("<unit> since <date>") on CALENDAR
+/// (standard/gregorian, proleptic_gregorian, julian, noleap/365_day,
+/// all_leap/366_day, 360_day; "" = standard). The standard calendar is
+/// Julian up to 1582-10-04 and Gregorian from 1582-10-15. <unit> is seconds,
+/// minutes, hours or days (also s, sec, min, h, hr, d and plurals); <date> is
+/// "Y-M-D", optionally followed by " " or "T" and "h[:m[:s[.f]]]", and by
+/// "Z", "UTC" or an offset "+hh:mm"/"-hh"/"+hhmm" (local = UTC + offset).
+/// Years follow CF 1.9+ and cftime: standard and julian have no year 0 (the
+/// year before 1 is -1), the other calendars do. Resolution 1 microsecond.
+/// Throws std::invalid_argument for months or years as units (ambiguous,
+/// CF 4.4), dates that do not exist in the calendar (1582-10-10 standard,
+/// 02-29 in noleap), a non-finite value, and anything else not listed.
+CivilTime decode_cf_time(double value, const std::string& units, const std::string& calendar);
+
+}  // namespace seatilt

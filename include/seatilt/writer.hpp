@@ -1,0 +1,137 @@
+// seatilt/writer.hpp — CF netCDF-4 output with atomic publish.
+//
+// Owns: creating the output file under a temporary name in the output's
+// folder, defining dimensions and coordinate variables copied from the input
+// (same names, values, attributes and order; time as the unlimited
+// dimension), defining the output variables (float32 with _FillValue, or a
+// byte quality flag), deflate + shuffle compression, chunking, netCDF-C
+// quantisation with the CF-1.12 quantization container, writing rows, and
+// renaming to the final path on commit(). Destruction without commit()
+// removes the temporary file, so a failed run never leaves a file at the
+// output path. Does not decide names or meanings of variables (the caller
+// passes them as OutputVariable) and does no arithmetic beyond NaN -> fill
+// and double -> float conversion.
+//
+// References
+//  [1] CF Conventions 1.12: 2.5.1 (_FillValue), 3.5 (flags), 8.4 (quantization).
+//  [2] netCDF-C 4.9 API: nc_def_var_chunking, nc_def_var_deflate,
+//      nc_def_var_quantize (NC_QUANTIZE_GRANULARBR).
+//
+// Thread safety: netCDF-C is not thread-safe; call a Writer from one thread.
+#pragma once
+
+#include <cstddef>
+#include <cstdint>
+#include <memory>
+#include <string>
+#include <vector>
+
+#include "seatilt/grid.hpp"
+#include "seatilt/reader.hpp"
+
+namespace seatilt {
+
+/// Storage of an output variable.
+enum class OutputType {
+  float32,  ///< NC_FLOAT, _FillValue = 9.96921e36 (netCDF default float fill)
+  flag8,    ///< NC_BYTE quality flags, no _FillValue (every cell has a flag)
+};
+
+/// An output variable on (time, lat, lon) or (lat, lon) like the input.
+/// ATTRS are written in order after _FillValue: NC_CHAR/NC_STRING as text
+/// (NC_CHAR), numeric ones with their nc_type (NC_ERANGE -> OutputError).
+/// Names that netCDF reserves or that the writer owns (_FillValue,
+/// _NCProperties, _Storage, ...) are ignored.
+struct OutputVariable {
+  std::string name;
+  OutputType type = OutputType::float32;
+  std::vector<Attribute> attrs;  ///< standard_name, long_name, units, flag_masks, ...
+};
+
+/// How to write.
+struct WriterSettings {
+  int deflate = 1;             ///< 0..9 (0 = no compression), with shuffle when > 0
+  int significant_digits = 0;  ///< 0 = off; 1..7 = Granular BitRound, float32 variables only
+  bool force = false;          ///< overwrite an existing output
+  std::vector<Attribute> global_attrs;  ///< written in this order after the coordinates
+};
+
+// File layout written by Writer (netCDF-4, not the classic model):
+//  - dimensions: time (NC_UNLIMITED, when LAYOUT has time), lat, lon, named
+//    as in the input; coordinate variables with the input's names, values
+//    (all nt time steps written at construction) and nc_type, except that an
+//    integer or float type that cannot hold every unpacked value exactly
+//    becomes NC_DOUBLE; coordinate attributes copied except packing and
+//    missing-data ones (_FillValue, scale_factor, add_offset, missing_value,
+//    valid_*, _Unsigned);
+//  - every output variable chunked (1, chunk_rows, nx) or (chunk_rows, nx),
+//    chunk_rows = clamp(ceil(262144 / nx), 1, ny) (~1 MiB float32 chunks),
+//    deflate + shuffle when deflate > 0, an HDF5 chunk cache of two chunks
+//    per variable (not netCDF's 16 MiB); cells never written read back as
+//    _FillValue (float32) or -127 (NC_FILL_BYTE, flag8);
+//  - with significant_digits N > 0: Granular BitRound on float32 variables,
+//    attributes quantization = "quantization_info" and quantization_nsd = N
+//    (NC_INT), and the scalar NC_INT container variable "quantization_info"
+//    (algorithm = "granular_bitround", implementation = "libnetcdf version
+//    X.Y.Z") [1] 8.4;
+//  - the temporary file ".<basename>.tmp-<pid>-<random>" in PATH's folder.
+// Error messages: "PATH: variable V: <nc_strerror> (<action>)" for netCDF
+// failures, "PATH: <problem>" otherwise (PATH = the final path).
+
+/// Writes one output file. Move-only.
+class Writer {
+public:
+  /// Creates PATH's temporary sibling and defines everything. LAYOUT gives
+  /// dimension names and coordinate variables (lat, lon, optional time).
+  /// Throws OutputError when PATH exists and !settings.force, when its folder
+  /// does not exist or is not writable, when PATH is a folder, when a
+  /// coordinate is empty, or when netCDF refuses the definition (e.g. two
+  /// variables of one name); UsageError for deflate outside 0..9 or
+  /// significant_digits outside 0..NC_QUANTIZE_MAX_FLOAT_NSD (7 in netCDF-C
+  /// 4.9; checked before any file is created). A moved-from Writer throws
+  /// OutputError from the write, set and commit members.
+  Writer(const std::string& path, const HeightInfo& layout,
+         std::vector<OutputVariable> variables, const WriterSettings& settings);
+  ~Writer();
+  Writer(Writer&&) noexcept;
+  Writer& operator=(Writer&&) noexcept;
+  Writer(const Writer&) = delete;
+  Writer& operator=(const Writer&) = delete;
+
+  /// Rows per chunk along latitude; callers align their row bands to it.
+  [[nodiscard]] std::size_t chunk_rows() const;
+
+  /// Writes ROWS (rows.nx == nx) of float variable VAR (index into the
+  /// variables given) at time step T (0 without time), starting at row J0.
+  /// Non-finite values and |values| > FLT_MAX become _FillValue; the rest
+  /// are rounded to the nearest float. Throws OutputError on failure and
+  /// when VAR is not a float32 variable, T >= nt, J0 + rows.ny > ny or
+  /// rows.nx != nx (the message names the variable).
+  void write_rows(std::size_t var, std::size_t t, std::size_t j0, const Field& rows);
+
+  /// Writes NROWS x nx flags of flag8 variable VAR at time step T, row J0.
+  /// Flags are stored bit for bit in the signed NC_BYTE (128..255 read back
+  /// as -128..-1). Throws OutputError like write_rows.
+  void write_flags(std::size_t var, std::size_t t, std::size_t j0, std::size_t nrows,
+                   const std::uint8_t* flags);
+
+  /// Sets (or replaces) a global text attribute before commit (e.g. a
+  /// completion marker). Throws OutputError on failure.
+  void set_global_text(const std::string& name, const std::string& value);
+
+  /// Closes the file, fsyncs it and renames it to the final path (atomic on
+  /// POSIX). Without force an output that appeared since construction is
+  /// not replaced (Linux renameat2 RENAME_NOREPLACE): OutputError "output
+  /// exists". Throws OutputError on failure (the temporary file is removed
+  /// and a previous output at PATH is untouched) and when called twice.
+  void commit();
+
+  /// Final output path.
+  [[nodiscard]] const std::string& path() const;
+
+private:
+  struct Impl;
+  std::unique_ptr<Impl> impl_;
+};
+
+}  // namespace seatilt

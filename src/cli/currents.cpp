@@ -1,0 +1,190 @@
+// `seatilt currents`: parse options, build one CurrentsJob per input, run
+// them, map failures to exit codes (one error line per failed input).
+#include <omp.h>
+#include <sys/stat.h>
+
+#include <chrono>
+#include <cstdlib>
+#include <string>
+#include <vector>
+
+#include "cli.hpp"
+#include "seatilt/error.hpp"
+#include "seatilt/product.hpp"
+
+namespace seatilt::cli {
+namespace {
+
+struct CurrentsArgs {
+  std::vector<std::string> inputs;
+  std::string output;
+  std::string variable, units;
+  int order = 2;
+  std::string equator = "blend";
+  double band = 5.0;
+  std::string coast = "one-sided";
+  std::string earth = "wgs84";
+  std::string gravity = "standard";
+  std::string fields = "all";
+  int threads = 0;
+  int deflate = 1;
+  int significant_digits = 0;
+  bool force = false;
+  std::size_t rows = 0;
+  std::size_t memory_mb = 256;
+} args;
+
+bool is_directory(const std::string& p) {
+  struct stat st {};
+  return ::stat(p.c_str(), &st) == 0 && S_ISDIR(st.st_mode);
+}
+
+std::string basename_no_nc(const std::string& path) {
+  std::string b = path.substr(path.find_last_of('/') + 1);
+  for (const char* ext : {".nc4", ".nc", ".cdf", ".netcdf"}) {
+    const std::string e = ext;
+    if (b.size() > e.size() && b.compare(b.size() - e.size(), e.size(), e) == 0) {
+      b.resize(b.size() - e.size());
+      break;
+    }
+  }
+  return b;
+}
+
+bool same_file(const std::string& a, const std::string& b) {
+  struct stat sa {}, sb {};
+  return ::stat(a.c_str(), &sa) == 0 && ::stat(b.c_str(), &sb) == 0 && sa.st_dev == sb.st_dev &&
+         sa.st_ino == sb.st_ino;
+}
+
+CurrentsOptions resolve_options() {
+  CurrentsOptions o;
+  o.order = args.order;
+  if (args.equator == "mask") o.equator = EquatorMethod::mask;
+  else if (args.equator == "beta") o.equator = EquatorMethod::beta;
+  else if (args.equator == "blend") o.equator = EquatorMethod::blend;
+  else throw UsageError("--equator: '" + args.equator + "' is not one of mask, beta, blend");
+  o.equator_band_deg = args.band;
+  if (args.coast == "one-sided") o.coast = CoastMethod::one_sided;
+  else if (args.coast == "mask") o.coast = CoastMethod::mask;
+  else throw UsageError("--coast: '" + args.coast + "' is not one of one-sided, mask");
+  if (args.earth == "sphere") o.earth = EarthModel::sphere;
+  else if (args.earth == "wgs84") o.earth = EarthModel::wgs84;
+  else throw UsageError("--earth: '" + args.earth + "' is not one of sphere, wgs84");
+  if (args.gravity == "standard") {
+    o.gravity = GravityModel::standard;
+  } else if (args.gravity == "wgs84") {
+    o.gravity = GravityModel::wgs84;
+  } else {
+    char* end = nullptr;
+    const double g = std::strtod(args.gravity.c_str(), &end);
+    if (end == args.gravity.c_str() || *end != '\0')
+      throw UsageError("--gravity: '" + args.gravity +
+                       "' is not standard, wgs84 or a number in m s-2");
+    o.gravity = GravityModel::constant;
+    o.gravity_value = g;
+  }
+  validate(o);
+  return o;
+}
+
+}  // namespace
+
+CLI::App* add_currents(CLI::App& app) {
+  CLI::App* c = app.add_subcommand(
+      "currents", "compute geostrophic surface currents and kinematics from height files");
+  c->fallthrough();
+  c->add_option("inputs", args.inputs, "input netCDF files of sea-surface height")->required();
+  c->add_option("-o,--output", args.output,
+                "output file, or folder (existing, or ending in /) for several inputs")
+      ->required();
+  c->add_option("--variable", args.variable, "height variable (default: detected by standard_name)");
+  c->add_option("--units", args.units, "override the height variable's units (e.g. cm)");
+  c->add_option("--order", args.order, "stencil order: 2, 4 or 6 (3-, 5-, 7-point)")
+      ->capture_default_str();
+  c->add_option("--equator", args.equator, "equatorial treatment: mask, beta, blend")
+      ->capture_default_str();
+  c->add_option("--equator-band", args.band, "half-width of the equatorial band (degrees)")
+      ->capture_default_str();
+  c->add_option("--coast", args.coast, "next to missing cells: one-sided, mask")
+      ->capture_default_str();
+  c->add_option("--earth", args.earth, "earth model: sphere, wgs84")->capture_default_str();
+  c->add_option("--gravity", args.gravity, "standard, wgs84 or a number (m s-2)")
+      ->capture_default_str();
+  c->add_option("--fields", args.fields, "comma list of output fields, or all")
+      ->capture_default_str();
+  c->add_option("--threads", args.threads, "OpenMP threads (default: all cores)");
+  c->add_option("--deflate", args.deflate, "deflate level 0..9")->capture_default_str();
+  c->add_option("--significant-digits", args.significant_digits,
+                "keep N significant digits (1..7, Granular BitRound; 0 = off)")
+      ->capture_default_str();
+  c->add_option("--rows", args.rows, "row band height (default: from --memory)");
+  c->add_option("--memory", args.memory_mb, "memory budget for row bands (MB)")
+      ->capture_default_str();
+  c->add_flag("--force", args.force, "overwrite existing outputs");
+  return c;
+}
+
+int run_currents_command() {
+  const CurrentsOptions options = resolve_options();
+  const std::vector<std::string> fields = parse_field_list(args.fields);
+  if (args.threads < 0) throw UsageError("--threads: must be >= 0");
+  if (args.threads > 0) omp_set_num_threads(args.threads);
+  if (args.deflate < 0 || args.deflate > 9)
+    throw UsageError("--deflate: " + std::to_string(args.deflate) + " is outside 0..9");
+  if (args.significant_digits < 0 || args.significant_digits > 7)
+    throw UsageError("--significant-digits: " + std::to_string(args.significant_digits) +
+                     " is outside 0..7");
+  if (args.memory_mb < 16) throw UsageError("--memory: at least 16 MB");
+
+  const bool to_dir = !args.output.empty() &&
+                      (args.output.back() == '/' || is_directory(args.output));
+  if (args.inputs.size() > 1 && !to_dir)
+    throw UsageError("-o: several inputs need an output folder (existing, or ending in /), got '" +
+                     args.output + "'");
+  if (to_dir && !is_directory(args.output))
+    throw OutputError(args.output + ": output folder does not exist");
+
+  std::size_t failed = 0;
+  Error last_error(ExitCode::ok, "");
+  for (const std::string& input : args.inputs) {
+    CurrentsJob job;
+    job.input = input;
+    job.output = to_dir ? (args.output.back() == '/' ? args.output : args.output + "/") +
+                              basename_no_nc(input) + "_currents.nc"
+                        : args.output;
+    job.reader.variable = args.variable;
+    job.reader.units = args.units;
+    job.options = options;
+    job.fields = fields;
+    job.writer.deflate = args.deflate;
+    job.writer.significant_digits = args.significant_digits;
+    job.writer.force = args.force;
+    job.command_line = command_line();
+    job.band_rows = args.rows;
+    job.memory_bytes = args.memory_mb << 20;
+    try {
+      if (same_file(job.input, job.output))
+        throw OutputError(job.output + ": output would overwrite its own input");
+      const auto start = std::chrono::steady_clock::now();
+      const CurrentsSummary s = run_currents(job);
+      const double secs =
+          std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+      info(job.output + ": " + std::to_string(s.steps) + " step(s), " + std::to_string(s.cells) +
+           " cells, " + std::to_string(s.cells - s.valid) + " masked, " +
+           std::to_string(s.flagged) + " flagged, " + std::to_string(secs) + " s");
+    } catch (const Error& e) {
+      if (args.inputs.size() == 1) throw;
+      print_error(e.what());
+      last_error = e;
+      ++failed;
+    }
+  }
+  if (failed == 0) return 0;
+  info(std::to_string(failed) + " of " + std::to_string(args.inputs.size()) + " inputs failed");
+  // Every input failed: the batch did nothing, report the (last) cause itself.
+  if (failed == args.inputs.size()) return static_cast<int>(last_error.code());
+  return static_cast<int>(ExitCode::batch);
+}
+
+}  // namespace seatilt::cli

@@ -1,0 +1,181 @@
+// `seatilt inspect`: explain what a run would do with a file.
+#include <cmath>
+#include <cstdio>
+#include <sstream>
+#include <string>
+#include <vector>
+
+#include "cli.hpp"
+#include "seatilt/error.hpp"
+#include "seatilt/grid.hpp"
+
+namespace seatilt::cli {
+namespace {
+
+struct InspectArgs {
+  std::string input;
+  bool json = false;
+  std::string variable, units;
+} iargs;
+
+std::string json_string(const std::string& s) {
+  std::string o = "\"";
+  for (unsigned char c : s) {
+    switch (c) {
+      case '"': o += "\\\""; break;
+      case '\\': o += "\\\\"; break;
+      case '\n': o += "\\n"; break;
+      case '\r': o += "\\r"; break;
+      case '\t': o += "\\t"; break;
+      default:
+        if (c < 0x20) {
+          char buf[8];
+          std::snprintf(buf, sizeof buf, "\\u%04x", c);
+          o += buf;
+        } else {
+          o += static_cast<char>(c);
+        }
+    }
+  }
+  return o + "\"";
+}
+
+std::string num(double x) {
+  if (!std::isfinite(x)) return "null";
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%.10g", x);
+  return buf;
+}
+
+const char* storage_name(int t) {
+  switch (t) {
+    case 1: return "byte";
+    case 2: return "char";
+    case 3: return "short";
+    case 4: return "int";
+    case 5: return "float";
+    case 6: return "double";
+    case 7: return "ubyte";
+    case 8: return "ushort";
+    case 9: return "uint";
+    case 10: return "int64";
+    case 11: return "uint64";
+    default: return "other";
+  }
+}
+
+}  // namespace
+
+CLI::App* add_inspect(CLI::App& app) {
+  CLI::App* c = app.add_subcommand("inspect", "explain how a height file would be read");
+  c->fallthrough();
+  c->add_option("input", iargs.input, "input netCDF file")->required();
+  c->add_flag("--json", iargs.json, "one JSON object on stdout");
+  c->add_option("--variable", iargs.variable, "height variable (default: detected)");
+  c->add_option("--units", iargs.units, "override the height variable's units");
+  return c;
+}
+
+int run_inspect_command() {
+  ReaderOptions ro;
+  ro.variable = iargs.variable;
+  ro.units = iargs.units;
+  Reader reader(iargs.input, ro);
+  const HeightInfo& in = reader.info();
+  Grid grid = [&] {
+    try {
+      return Grid(in.lat.values, in.lon.values);
+    } catch (const std::invalid_argument& e) {
+      throw InputError(input_message(in.path, in.variable, e.what()));
+    }
+  }();
+
+  // Fill fraction over every step, read in bands of bounded size.
+  std::size_t missing = 0;
+  const std::size_t band = std::max<std::size_t>(1, (8u << 20) / (8 * std::max<std::size_t>(in.nx, 1)));
+  Field rows;
+  for (std::size_t t = 0; t < in.nt; ++t)
+    for (std::size_t j = 0; j < in.ny; j += band) {
+      const std::size_t n = std::min(band, in.ny - j);
+      reader.read_rows(t, j, n, rows);
+      for (double x : rows.data) missing += std::isnan(x);
+    }
+  const double total = static_cast<double>(in.nt * in.ny * in.nx);
+  const double fill_fraction = total > 0 ? static_cast<double>(missing) / total : 0.0;
+
+  std::vector<std::string> times;
+  if (in.time)
+    for (std::size_t t = 0; t < in.nt; ++t) {
+      try {
+        times.push_back(reader.date(t).iso());
+      } catch (const Error&) {
+        times.push_back("undecodable");
+      }
+    }
+  const auto& la = in.lat.values;
+  const auto& lo = in.lon.values;
+  const double lat_min = std::min(la.front(), la.back()), lat_max = std::max(la.front(), la.back());
+  double lon_min = lo.front(), lon_max = lo.front();
+  for (double x : lo) { lon_min = std::min(lon_min, x); lon_max = std::max(lon_max, x); }
+  const char* kind = in.kind == HeightKind::anomaly ? "anomaly" : "absolute";
+
+  std::ostringstream o;
+  if (iargs.json) {
+    o << "{\"file\": " << json_string(in.path) << ", \"format\": " << json_string(in.format)
+      << ", \"variable\": " << json_string(in.variable)
+      << ", \"chosen_because\": " << json_string(in.chosen_because)
+      << ", \"kind\": " << json_string(kind) << ", \"kind_reason\": " << json_string(in.kind_reason)
+      << ", \"standard_name\": " << json_string(in.standard_name)
+      << ", \"units\": " << json_string(in.units)
+      << ", \"units_overridden\": " << (in.units_overridden ? "true" : "false")
+      << ", \"to_metres_scale\": " << num(in.to_metres_scale)
+      << ", \"to_metres_offset\": " << num(in.to_metres_offset)
+      << ", \"packed\": " << (in.packed ? "true" : "false")
+      << ", \"scale_factor\": " << num(in.scale_factor) << ", \"add_offset\": " << num(in.add_offset)
+      << ", \"storage_type\": " << json_string(storage_name(in.storage_type))
+      << ", \"nt\": " << in.nt << ", \"ny\": " << in.ny << ", \"nx\": " << in.nx
+      << ", \"lat_name\": " << json_string(in.lat.name) << ", \"lon_name\": " << json_string(in.lon.name)
+      << ", \"lat_min\": " << num(lat_min) << ", \"lat_max\": " << num(lat_max)
+      << ", \"lat_step_deg\": " << num(grid.dlat_deg())
+      << ", \"lat_descending\": " << (grid.lat_descending() ? "true" : "false")
+      << ", \"lon_min\": " << num(lon_min) << ", \"lon_max\": " << num(lon_max)
+      << ", \"lon_step_deg\": " << num(grid.dlon_deg())
+      << ", \"periodic\": " << (grid.periodic() ? "true" : "false")
+      << ", \"time_name\": " << (in.time ? json_string(in.time->name) : "null")
+      << ", \"calendar\": " << (in.time ? json_string(in.calendar) : "null") << ", \"times\": [";
+    for (std::size_t k = 0; k < times.size(); ++k) o << (k ? ", " : "") << json_string(times[k]);
+    o << "], \"fill_fraction\": " << num(fill_fraction) << "}\n";
+  } else {
+    o << "file:        " << in.path << " (" << in.format << ")\n"
+      << "variable:    " << in.variable << " (chosen by " << in.chosen_because << ")\n"
+      << "kind:        " << kind << " (" << in.kind_reason << ")\n"
+      << "units:       " << in.units << (in.units_overridden ? " (overridden)" : "")
+      << " -> metres = value * " << num(in.to_metres_scale) << " + " << num(in.to_metres_offset)
+      << "\n"
+      << "storage:     " << storage_name(in.storage_type);
+    if (in.packed)
+      o << ", packed: scale_factor " << num(in.scale_factor) << ", add_offset " << num(in.add_offset);
+    o << "\n"
+      << "grid:        " << in.ny << " x " << in.nx << " (" << in.lat.name << " x " << in.lon.name
+      << ")\n"
+      << "latitude:    " << num(lat_min) << " .. " << num(lat_max) << ", step " << num(grid.dlat_deg())
+      << (grid.lat_descending() ? " (descending)" : " (ascending)") << "\n"
+      << "longitude:   " << num(lon_min) << " .. " << num(lon_max) << ", step "
+      << num(grid.dlon_deg()) << (grid.periodic() ? " (global, periodic)" : " (regional)")
+      << "\n";
+    if (in.time) {
+      o << "time:        " << in.nt << " step(s), calendar " << in.calendar;
+      if (!times.empty()) o << ", " << times.front() << " .. " << times.back();
+      o << "\n";
+    } else {
+      o << "time:        none (one map)\n";
+    }
+    char buf[32];
+    std::snprintf(buf, sizeof buf, "%.2f %%", 100.0 * fill_fraction);
+    o << "missing:     " << buf << " of cells\n";
+  }
+  std::fputs(o.str().c_str(), stdout);
+  return 0;
+}
+
+}  // namespace seatilt::cli
