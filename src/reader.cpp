@@ -1,0 +1,1318 @@
+// reader.cpp — netCDF sea-surface-height input (see seatilt/reader.hpp).
+//
+// Notation
+//   raw     a value as stored in the file ("packed units"), after the
+//           _Unsigned reinterpretation of signed integer storage
+//   h       the unpacked height in the file's units: h = raw * scale_factor + add_offset   [CF 8.1]
+//   metres  h * to_metres_scale + to_metres_offset (UDUNITS-2 converter, linear for lengths)
+//   day     an integer day number in a calendar: the Julian Day Number (the
+//           civil day, midnight to midnight, that contains the noon of JD n)
+//           for standard, julian and proleptic_gregorian; a plain day count
+//           from year 0 for the idealised calendars (noleap, all_leap, 360_day)
+//   years   astronomical inside (year 0 exists); converted at the edges for
+//           the calendars with historical numbering (standard, julian)
+//
+// Missing data [CF 2.5.1]: raw is missing when it is NaN or infinite, equals
+// _FillValue (or, without that attribute, the netCDF default fill of the
+// type, except for byte types, as netCDF4-python does), equals one of
+// missing_value, or lies outside valid_range / [valid_min, valid_max]. All
+// these comparisons are made on raw values, i.e. in packed units.
+
+#include "seatilt/reader.hpp"
+
+#include <netcdf.h>
+#include <udunits2.h>
+
+#include <algorithm>
+#include <array>
+#include <cctype>
+#include <cmath>
+#include <cstdio>
+#include <filesystem>
+#include <limits>
+#include <mutex>
+#include <stdexcept>
+#include <utility>
+
+#include "seatilt/error.hpp"
+
+namespace seatilt {
+
+namespace {
+
+// ---- small string helpers ---------------------------------------------------
+
+std::string trim(const std::string& s) {
+  const auto b = s.find_first_not_of(" \t\r\n");
+  if (b == std::string::npos) return {};
+  const auto e = s.find_last_not_of(" \t\r\n");
+  return s.substr(b, e - b + 1);
+}
+
+std::string lower(std::string s) {
+  for (char& c : s) c = static_cast<char>(std::tolower(static_cast<unsigned char>(c)));
+  return s;
+}
+
+std::string join(const std::vector<std::string>& items, const char* sep) {
+  std::string out;
+  for (std::size_t k = 0; k < items.size(); ++k) {
+    if (k) out += sep;
+    out += items[k];
+  }
+  return out;
+}
+
+std::string nc_message(int status) { return nc_strerror(status); }
+
+// ---- CF sea-surface-height standard names [CF standard-name table v83] -----
+
+enum class HeightName { none, absolute, anomaly, ellipsoid };
+
+HeightName classify_height_name(const std::string& standard_name) {
+  const std::string s = trim(standard_name);
+  if (s == "sea_surface_height_above_geoid" ||
+      s == "sea_surface_height_above_geopotential_datum")
+    return HeightName::absolute;
+  if (s == "sea_surface_height_above_mean_sea_level" ||
+      s == "sea_surface_height_above_sea_level" || s == "sea_surface_height")
+    return HeightName::anomaly;
+  if (s == "sea_surface_height_above_reference_ellipsoid") return HeightName::ellipsoid;
+  return HeightName::none;
+}
+
+const char* ellipsoid_refusal =
+    "standard_name sea_surface_height_above_reference_ellipsoid is refused: an "
+    "ellipsoidal height includes the geoid (about +-100 m), whose slopes are not "
+    "geostrophic; subtract a geoid first and give heights above the geoid or above "
+    "mean sea level";
+
+// ---- attribute access ---------------------------------------------------------
+
+bool is_numeric_type(nc_type t) {
+  switch (t) {
+    case NC_BYTE: case NC_UBYTE: case NC_SHORT: case NC_USHORT: case NC_INT:
+    case NC_UINT: case NC_INT64: case NC_UINT64: case NC_FLOAT: case NC_DOUBLE:
+      return true;
+    default:
+      return false;
+  }
+}
+
+bool is_signed_integer_type(nc_type t) {
+  return t == NC_BYTE || t == NC_SHORT || t == NC_INT || t == NC_INT64;
+}
+
+int type_bits(nc_type t) {
+  switch (t) {
+    case NC_BYTE: case NC_UBYTE: return 8;
+    case NC_SHORT: case NC_USHORT: return 16;
+    case NC_INT: case NC_UINT: case NC_FLOAT: return 32;
+    default: return 64;
+  }
+}
+
+// Reads attribute NAME of VARID (NC_GLOBAL allowed) as text; nullopt when absent
+// or not text. NC_STRING arrays are joined with ", ".
+std::optional<std::string> text_att(int ncid, int varid, const char* name) {
+  nc_type t = NC_NAT;
+  std::size_t len = 0;
+  if (nc_inq_att(ncid, varid, name, &t, &len) != NC_NOERR) return std::nullopt;
+  if (t == NC_CHAR) {
+    std::string s(len, '\0');
+    if (len && nc_get_att_text(ncid, varid, name, s.data()) != NC_NOERR) return std::nullopt;
+    // Some writers include the C terminator in the length.
+    while (!s.empty() && s.back() == '\0') s.pop_back();
+    return s;
+  }
+  if (t == NC_STRING) {
+    std::vector<char*> p(len, nullptr);
+    if (len && nc_get_att_string(ncid, varid, name, p.data()) != NC_NOERR) return std::nullopt;
+    std::vector<std::string> parts;
+    for (char* c : p) parts.emplace_back(c ? c : "");
+    if (len) nc_free_string(len, p.data());
+    return join(parts, ", ");
+  }
+  return std::nullopt;
+}
+
+// Numeric attribute: absent -> nullopt; present but not numeric -> empty vector
+// with *bad = true.
+std::optional<std::vector<double>> number_att(int ncid, int varid, const char* name,
+                                              bool* bad = nullptr, nc_type* type = nullptr) {
+  nc_type t = NC_NAT;
+  std::size_t len = 0;
+  if (bad) *bad = false;
+  if (nc_inq_att(ncid, varid, name, &t, &len) != NC_NOERR) return std::nullopt;
+  if (type) *type = t;
+  if (!is_numeric_type(t) || len == 0) {
+    if (bad) *bad = true;
+    return std::vector<double>{};
+  }
+  std::vector<double> v(len);
+  if (nc_get_att_double(ncid, varid, name, v.data()) != NC_NOERR) {
+    if (bad) *bad = true;
+    return std::vector<double>{};
+  }
+  return v;
+}
+
+// Copies every attribute of VARID that is text or numeric (user-defined types
+// are skipped: nothing downstream can use them).
+std::vector<Attribute> copy_attributes(int ncid, int varid) {
+  std::vector<Attribute> out;
+  int natts = 0;
+  if (varid == NC_GLOBAL) {
+    if (nc_inq_natts(ncid, &natts) != NC_NOERR) return out;
+  } else if (nc_inq_varnatts(ncid, varid, &natts) != NC_NOERR) {
+    return out;
+  }
+  for (int k = 0; k < natts; ++k) {
+    char name[NC_MAX_NAME + 1] = {0};
+    if (nc_inq_attname(ncid, varid, k, name) != NC_NOERR) continue;
+    nc_type t = NC_NAT;
+    std::size_t len = 0;
+    if (nc_inq_att(ncid, varid, name, &t, &len) != NC_NOERR) continue;
+    Attribute a;
+    a.name = name;
+    a.nc_type = t;
+    if (t == NC_CHAR || t == NC_STRING) {
+      a.text = text_att(ncid, varid, name).value_or("");
+    } else if (is_numeric_type(t)) {
+      a.values.resize(len);
+      if (len && nc_get_att_double(ncid, varid, name, a.values.data()) != NC_NOERR) continue;
+    } else {
+      continue;
+    }
+    out.push_back(std::move(a));
+  }
+  return out;
+}
+
+// ---- UDUNITS-2 -------------------------------------------------------------------
+// One unit system per process, read lazily; the parser is not thread-safe
+// (REFERENCES.md 8), so every UDUNITS call below runs under units_mutex().
+
+std::mutex& units_mutex() {
+  static std::mutex m;
+  return m;
+}
+
+ut_system* unit_system() {
+  static std::once_flag once;
+  static ut_system* system = nullptr;
+  std::call_once(once, [] {
+    // Silence UDUNITS' own stderr messages (XML override warnings, parse errors):
+    // library code never prints; failures are reported through exceptions.
+    ut_set_error_message_handler(ut_ignore);
+    system = ut_read_xml(nullptr);
+  });
+  return system;
+}
+
+struct UnitFree {
+  void operator()(ut_unit* u) const { ut_free(u); }
+};
+struct ConverterFree {
+  void operator()(cv_converter* c) const { cv_free(c); }
+};
+
+enum class UnitStatus { ok, unparsable, not_length, no_database };
+
+// Finds metres = value * scale + offset for UNITS. The converter of a length
+// unit to "m" is linear, so two evaluations give scale and offset exactly.
+UnitStatus length_to_metres(const std::string& units, double& scale, double& offset) {
+  std::lock_guard<std::mutex> lock(units_mutex());
+  ut_system* system = unit_system();
+  if (!system) return UnitStatus::no_database;
+  std::string buffer = units;
+  char* text = ut_trim(buffer.data(), UT_UTF8);
+  std::unique_ptr<ut_unit, UnitFree> from(ut_parse(system, text, UT_UTF8));
+  if (!from) return UnitStatus::unparsable;
+  std::unique_ptr<ut_unit, UnitFree> metre(ut_parse(system, "m", UT_ASCII));
+  if (!metre) return UnitStatus::no_database;
+  if (!ut_are_convertible(from.get(), metre.get())) return UnitStatus::not_length;
+  std::unique_ptr<cv_converter, ConverterFree> cv(ut_get_converter(from.get(), metre.get()));
+  if (!cv) return UnitStatus::not_length;
+  offset = cv_convert_double(cv.get(), 0.0);
+  scale = cv_convert_double(cv.get(), 1.0) - offset;
+  return UnitStatus::ok;
+}
+
+// ---- coordinate classification [CF 4.1, 4.2, 4.4] ----------------------------
+
+enum class Axis { none, lat, lon, time };
+
+bool is_lat_units(const std::string& u) {
+  static const std::array<const char*, 6> names = {"degrees_north", "degree_north", "degree_n",
+                                                    "degrees_n", "degreen", "degreesn"};
+  const std::string s = lower(trim(u));
+  return std::find(names.begin(), names.end(), s) != names.end();
+}
+
+bool is_lon_units(const std::string& u) {
+  static const std::array<const char*, 6> names = {"degrees_east", "degree_east", "degree_e",
+                                                   "degrees_e", "degreee", "degreese"};
+  const std::string s = lower(trim(u));
+  return std::find(names.begin(), names.end(), s) != names.end();
+}
+
+bool is_time_units(const std::string& u) {
+  const std::string s = lower(trim(u));
+  const auto p = s.find(" since ");
+  return p != std::string::npos && p > 0;
+}
+
+Axis classify_coordinate(int ncid, int varid) {
+  const std::string units = text_att(ncid, varid, "units").value_or("");
+  const std::string sn = trim(text_att(ncid, varid, "standard_name").value_or(""));
+  const std::string axis = lower(trim(text_att(ncid, varid, "axis").value_or("")));
+  const bool degrees = lower(trim(units)).rfind("degree", 0) == 0;
+  if (is_lat_units(units) || sn == "latitude" || (axis == "y" && degrees)) return Axis::lat;
+  if (is_lon_units(units) || sn == "longitude" || (axis == "x" && degrees)) return Axis::lon;
+  if (sn == "time" || axis == "t" || is_time_units(units)) return Axis::time;
+  return Axis::none;
+}
+
+// ---- CF calendars [CF 1.12 4.4.1] --------------------------------------------
+// Each calendar is a pair of functions between (astronomical year, month, day)
+// and an integer day number. Integer division below is floor division so that
+// negative years work.
+
+long long floor_div(long long a, long long b) {
+  long long q = a / b;
+  if ((a % b != 0) && ((a < 0) != (b < 0))) --q;
+  return q;
+}
+
+struct Ymd {
+  long long y;
+  int m, d;
+};
+
+// Proleptic Gregorian <-> JDN: days_from_civil of H. Hinnant, "chrono-Compatible
+// Low-Level Date Algorithms" (2013), shifted so that 1970-01-01 = JDN 2440588.
+long long gregorian_to_jdn(long long y, int m, int d) {
+  y -= m <= 2;
+  const long long era = floor_div(y, 400);
+  const long long yoe = y - era * 400;                                      // [0, 399]
+  const long long doy = (153 * (m > 2 ? m - 3 : m + 9) + 2) / 5 + d - 1;    // [0, 365]
+  const long long doe = yoe * 365 + yoe / 4 - yoe / 100 + doy;              // [0, 146096]
+  return era * 146097 + doe - 719468 + 2440588;
+}
+
+Ymd jdn_to_gregorian(long long jdn) {
+  const long long z = jdn - 2440588 + 719468;
+  const long long era = floor_div(z, 146097);
+  const long long doe = z - era * 146097;
+  const long long yoe = (doe - doe / 1460 + doe / 36524 - doe / 146096) / 365;
+  const long long doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+  const long long mp = (5 * doy + 2) / 153;
+  const int d = static_cast<int>(doy - (153 * mp + 2) / 5 + 1);
+  const int m = static_cast<int>(mp < 10 ? mp + 3 : mp - 9);
+  return {yoe + era * 400 + (m <= 2), m, d};
+}
+
+// Julian calendar <-> JDN: the same algorithm with a 4-year era of 1461 days
+// (March-based years, leap day at the end of each era). 0000-03-01 Julian is
+// JDN 1721118 (0001-01-01 Julian = JDN 1721424, 306 days later).
+long long julian_to_jdn(long long y, int m, int d) {
+  y -= m <= 2;
+  const long long era = floor_div(y, 4);
+  const long long yoe = y - era * 4;                                        // [0, 3]
+  const long long doy = (153 * (m > 2 ? m - 3 : m + 9) + 2) / 5 + d - 1;    // [0, 365]
+  return era * 1461 + yoe * 365 + doy + 1721118;
+}
+
+Ymd jdn_to_julian(long long jdn) {
+  const long long z = jdn - 1721118;
+  const long long era = floor_div(z, 1461);
+  const long long doe = z - era * 1461;              // [0, 1460]
+  const long long yoe = std::min<long long>(doe / 365, 3);
+  const long long doy = doe - 365 * yoe;
+  const long long mp = (5 * doy + 2) / 153;
+  const int d = static_cast<int>(doy - (153 * mp + 2) / 5 + 1);
+  const int m = static_cast<int>(mp < 10 ? mp + 3 : mp - 9);
+  return {yoe + era * 4 + (m <= 2), m, d};
+}
+
+// Mixed Julian/Gregorian ("standard"): Gregorian from 1582-10-15 (JDN 2299161),
+// Julian up to 1582-10-04 (JDN 2299160); the ten days between do not exist.
+constexpr long long gregorian_start_jdn = 2299161;
+
+const std::array<int, 13> cum_noleap = {0, 31, 59, 90, 120, 151, 181, 212, 243, 273, 304, 334, 365};
+const std::array<int, 13> cum_leap = {0, 31, 60, 91, 121, 152, 182, 213, 244, 274, 305, 335, 366};
+
+long long fixed_year_to_day(long long y, int m, int d, const std::array<int, 13>& cum) {
+  return y * cum[12] + cum[m - 1] + d - 1;
+}
+
+Ymd day_to_fixed_year(long long day, const std::array<int, 13>& cum) {
+  const long long y = floor_div(day, cum[12]);
+  const int doy = static_cast<int>(day - y * cum[12]);
+  int m = 1;
+  while (m < 12 && doy >= cum[m]) ++m;
+  return {y, m, doy - cum[m - 1] + 1};
+}
+
+enum class Calendar { standard, proleptic_gregorian, julian, noleap, all_leap, day360 };
+
+Calendar parse_calendar(const std::string& name) {
+  const std::string c = lower(trim(name));
+  if (c.empty() || c == "standard" || c == "gregorian") return Calendar::standard;
+  if (c == "proleptic_gregorian") return Calendar::proleptic_gregorian;
+  if (c == "julian") return Calendar::julian;
+  if (c == "noleap" || c == "365_day") return Calendar::noleap;
+  if (c == "all_leap" || c == "366_day") return Calendar::all_leap;
+  if (c == "360_day") return Calendar::day360;
+  throw std::invalid_argument("calendar \"" + name +
+                              "\" is not supported (standard, gregorian, proleptic_gregorian, "
+                              "julian, noleap, 365_day, all_leap, 366_day, 360_day)");
+}
+
+bool gregorian_leap(long long y) { return (y % 4 == 0 && y % 100 != 0) || y % 400 == 0; }
+bool julian_leap(long long y) { return floor_div(y, 4) * 4 == y; }
+
+int days_in_month(Calendar cal, long long y, int m) {
+  static const std::array<int, 12> len = {31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31};
+  switch (cal) {
+    case Calendar::day360: return 30;
+    case Calendar::noleap: return len[m - 1];
+    case Calendar::all_leap: return m == 2 ? 29 : len[m - 1];
+    case Calendar::julian: return m == 2 && julian_leap(y) ? 29 : len[m - 1];
+    case Calendar::proleptic_gregorian: return m == 2 && gregorian_leap(y) ? 29 : len[m - 1];
+    case Calendar::standard:
+      if (m != 2) return len[m - 1];
+      return (y < 1582 ? julian_leap(y) : gregorian_leap(y)) ? 29 : 28;
+  }
+  return 31;
+}
+
+// Astronomical year (year 0 exists) -> day number in CAL.
+long long to_day(Calendar cal, long long y, int m, int d) {
+  switch (cal) {
+    case Calendar::proleptic_gregorian: return gregorian_to_jdn(y, m, d);
+    case Calendar::julian: return julian_to_jdn(y, m, d);
+    case Calendar::standard: {
+      if (y > 1582 || (y == 1582 && (m > 10 || (m == 10 && d >= 15))))
+        return gregorian_to_jdn(y, m, d);
+      if (y == 1582 && m == 10 && d > 4)
+        throw std::invalid_argument("1582-10-05 to 1582-10-14 do not exist in the standard calendar");
+      return julian_to_jdn(y, m, d);
+    }
+    case Calendar::noleap: return fixed_year_to_day(y, m, d, cum_noleap);
+    case Calendar::all_leap: return fixed_year_to_day(y, m, d, cum_leap);
+    case Calendar::day360: return y * 360 + (m - 1) * 30 + d - 1;
+  }
+  return 0;
+}
+
+Ymd from_day(Calendar cal, long long day) {
+  switch (cal) {
+    case Calendar::proleptic_gregorian: return jdn_to_gregorian(day);
+    case Calendar::julian: return jdn_to_julian(day);
+    case Calendar::standard:
+      return day >= gregorian_start_jdn ? jdn_to_gregorian(day) : jdn_to_julian(day);
+    case Calendar::noleap: return day_to_fixed_year(day, cum_noleap);
+    case Calendar::all_leap: return day_to_fixed_year(day, cum_leap);
+    case Calendar::day360: {
+      const long long y = floor_div(day, 360);
+      const int doy = static_cast<int>(day - y * 360);
+      return {y, doy / 30 + 1, doy % 30 + 1};
+    }
+  }
+  return {0, 1, 1};
+}
+
+// CF 1.9+ (and cftime's default): the julian and standard calendars have no
+// year 0 (1 BC is written -1); the others use astronomical numbering.
+bool historical_years(Calendar cal) {
+  return cal == Calendar::standard || cal == Calendar::julian;
+}
+
+// Parses an unsigned integer at s[pos...]; returns false when none.
+bool parse_int(const std::string& s, std::size_t& pos, long long& value) {
+  const std::size_t start = pos;
+  value = 0;
+  while (pos < s.size() && std::isdigit(static_cast<unsigned char>(s[pos]))) {
+    if (pos - start > 12) return false;
+    value = value * 10 + (s[pos] - '0');
+    ++pos;
+  }
+  return pos > start;
+}
+
+struct RefTime {
+  long long y = 0;
+  int m = 1, d = 1;
+  double seconds_of_day = 0.0;  // may be outside [0, 86400) after a time-zone shift
+};
+
+// Parses "Y-M-D[( |T)h[:m[:s[.f]]]][Z| UTC| ±h[:mm]| ±hhmm]" [CF 4.4, UDUNITS-2 time syntax].
+RefTime parse_reference(const std::string& text) {
+  const std::string s = trim(text);
+  const auto bad = [&](const char* why) {
+    return std::invalid_argument("reference date \"" + s + "\": " + why);
+  };
+  RefTime r;
+  std::size_t p = 0;
+  bool negative = false;
+  if (p < s.size() && (s[p] == '-' || s[p] == '+')) negative = s[p++] == '-';
+  long long v = 0;
+  if (!parse_int(s, p, v) || p >= s.size() || s[p] != '-') throw bad("expected YYYY-MM-DD");
+  r.y = negative ? -v : v;
+  ++p;
+  if (!parse_int(s, p, v) || v < 1 || v > 12 || p >= s.size() || s[p] != '-')
+    throw bad("expected YYYY-MM-DD");
+  r.m = static_cast<int>(v);
+  ++p;
+  if (!parse_int(s, p, v) || v < 1 || v > 31) throw bad("expected YYYY-MM-DD");
+  r.d = static_cast<int>(v);
+  double sod = 0.0;
+  if (p < s.size() && (s[p] == 'T' || s[p] == 't' || s[p] == ' ')) {
+    std::size_t q = p + 1;
+    while (q < s.size() && s[q] == ' ') ++q;
+    long long hh = 0, mm = 0;
+    double ss = 0.0;
+    if (q < s.size() && std::isdigit(static_cast<unsigned char>(s[q]))) {
+      if (!parse_int(s, q, hh) || hh > 24) throw bad("bad hour");
+      if (q < s.size() && s[q] == ':') {
+        ++q;
+        if (!parse_int(s, q, mm) || mm > 59) throw bad("bad minute");
+        if (q < s.size() && s[q] == ':') {
+          ++q;
+          const std::size_t q0 = q;
+          while (q < s.size() && (std::isdigit(static_cast<unsigned char>(s[q])) || s[q] == '.')) ++q;
+          if (q == q0) throw bad("bad second");
+          try {
+            ss = std::stod(s.substr(q0, q - q0));
+          } catch (const std::exception&) {
+            throw bad("bad second");
+          }
+          if (!(ss >= 0.0 && ss < 61.0)) throw bad("bad second");
+        }
+      }
+      sod = static_cast<double>(hh * 3600 + mm * 60) + ss;
+      p = q;
+    }
+  }
+  // Optional time zone.
+  while (p < s.size() && s[p] == ' ') ++p;
+  if (p < s.size()) {
+    const std::string rest = s.substr(p);
+    const std::string lr = lower(rest);
+    if (lr == "z" || lr == "utc" || lr == "gmt") {
+      // UTC
+    } else if (rest[0] == '+' || rest[0] == '-') {
+      const double sign = rest[0] == '-' ? -1.0 : 1.0;
+      std::size_t q = 1;
+      long long a = 0, b = 0;
+      const std::size_t q0 = q;
+      if (!parse_int(rest, q, a)) throw bad("bad time-zone offset");
+      if (q < rest.size() && rest[q] == ':') {
+        ++q;
+        if (!parse_int(rest, q, b)) throw bad("bad time-zone offset");
+      } else if (q - q0 > 2) {  // "+0530"
+        b = a % 100;
+        a /= 100;
+      }
+      if (q != rest.size() || a > 14 || b > 59) throw bad("bad time-zone offset");
+      // Local time = UTC + offset, so UTC = local - offset.
+      sod -= sign * static_cast<double>(a * 3600 + b * 60);
+    } else {
+      throw bad("unexpected text after the date");
+    }
+  }
+  r.seconds_of_day = sod;
+  return r;
+}
+
+// Seconds per unit of a CF time unit; months and years are refused (CF 4.4:
+// their UDUNITS definitions are not calendar months or years).
+double time_unit_seconds(const std::string& unit) {
+  const std::string u = lower(unit);
+  if (u == "second" || u == "seconds" || u == "s" || u == "sec" || u == "secs") return 1.0;
+  if (u == "minute" || u == "minutes" || u == "min" || u == "mins") return 60.0;
+  if (u == "hour" || u == "hours" || u == "h" || u == "hr" || u == "hrs") return 3600.0;
+  if (u == "day" || u == "days" || u == "d") return 86400.0;
+  if (u == "month" || u == "months" || u == "year" || u == "years" || u == "yr" || u == "a" ||
+      u == "common_year" || u == "common_years")
+    throw std::invalid_argument("time unit \"" + unit +
+                                "\" is ambiguous (CF 4.4 advises against months and years); use "
+                                "days, hours, minutes or seconds");
+  throw std::invalid_argument("time unit \"" + unit +
+                              "\" is not one of seconds, minutes, hours or days");
+}
+
+// ---- truncation check for the classic formats ----------------------------------
+// netCDF-C reads past the end of a truncated CDF-1/2/5 file without an error
+// (its I/O layer zero-fills short reads), so the reader compares the file size
+// with the data extent that the header describes. Header grammar: "The NetCDF
+// Classic Format Specification" (NUG) and the CDF-5 format specification
+// (PnetCDF): magic "CDF" v, numrecs, dim_list, gatt_list, var_list; counts
+// (NON_NEG) are 4 bytes in CDF-1/2 and 8 bytes in CDF-5; begin offsets are 4
+// bytes in CDF-1 and 8 bytes otherwise; all big-endian.
+
+class HeaderStream {
+public:
+  explicit HeaderStream(std::FILE* f) : f_(f) {}
+  bool ok() const { return ok_; }
+  unsigned long long uint(int bytes) {
+    unsigned long long v = 0;
+    for (int k = 0; k < bytes; ++k) {
+      const int c = std::fgetc(f_);
+      if (c == EOF) {
+        ok_ = false;
+        return 0;
+      }
+      v = (v << 8) | static_cast<unsigned long long>(c);
+    }
+    return v;
+  }
+  void skip(unsigned long long bytes) {
+    if (!ok_ || bytes > (1ULL << 40) ||
+        std::fseek(f_, static_cast<long>(bytes), SEEK_CUR) != 0)
+      ok_ = false;
+  }
+  static unsigned long long pad4(unsigned long long n) { return (n + 3) / 4 * 4; }
+
+private:
+  std::FILE* f_;
+  bool ok_ = true;
+};
+
+std::size_t external_size(unsigned long long type) {
+  switch (type) {
+    case NC_BYTE: case NC_CHAR: case NC_UBYTE: return 1;
+    case NC_SHORT: case NC_USHORT: return 2;
+    case NC_INT: case NC_UINT: case NC_FLOAT: return 4;
+    case NC_DOUBLE: case NC_INT64: case NC_UINT64: return 8;
+    default: return 0;
+  }
+}
+
+// Returns the smallest file size (bytes) that holds every value the header of
+// a classic-format file describes, or 0 when it cannot tell (streamed file,
+// unparsable header: then netCDF's own checks are all there is).
+unsigned long long classic_min_size(const std::string& path, int format) {
+  std::unique_ptr<std::FILE, int (*)(std::FILE*)> file(std::fopen(path.c_str(), "rb"), &std::fclose);
+  if (!file) return 0;
+  HeaderStream in(file.get());
+  const int count = format == NC_FORMAT_CDF5 ? 8 : 4;
+  const int offset = format == NC_FORMAT_CLASSIC ? 4 : 8;
+  in.skip(4);  // "CDF" + version
+  const unsigned long long numrecs = in.uint(count);
+  if (count == 4 && numrecs == 0xFFFFFFFFULL) return 0;  // streaming: numrecs from the size
+  const auto name = [&] { in.skip(HeaderStream::pad4(in.uint(count))); };
+  const auto attributes = [&] {
+    in.uint(4);  // NC_ATTRIBUTE or ABSENT
+    const unsigned long long n = in.uint(count);
+    for (unsigned long long a = 0; a < n && in.ok(); ++a) {
+      name();
+      const std::size_t size = external_size(in.uint(4));
+      const unsigned long long nelems = in.uint(count);
+      if (size == 0) return false;
+      in.skip(HeaderStream::pad4(nelems * size));
+    }
+    return in.ok();
+  };
+  in.uint(4);  // NC_DIMENSION or ABSENT
+  const unsigned long long ndims = in.uint(count);
+  if (!in.ok() || ndims > 100000) return 0;
+  std::vector<unsigned long long> dim_len(ndims);
+  for (auto& len : dim_len) {
+    name();
+    len = in.uint(count);
+  }
+  if (!attributes()) return 0;
+  in.uint(4);  // NC_VARIABLE or ABSENT
+  const unsigned long long nvars = in.uint(count);
+  if (!in.ok() || nvars > 1000000) return 0;
+  // Per variable: begin offset, unpadded bytes per record (or in all), record?
+  struct Extent {
+    unsigned long long begin, bytes;
+    bool record;
+  };
+  std::vector<Extent> extents;
+  for (unsigned long long v = 0; v < nvars && in.ok(); ++v) {
+    name();
+    const unsigned long long nd = in.uint(count);
+    if (nd > 1024) return 0;
+    bool record = false;
+    unsigned long long product = 1;
+    for (unsigned long long k = 0; k < nd; ++k) {
+      const unsigned long long id = in.uint(count);
+      if (id >= ndims) return 0;
+      if (dim_len[id] == 0 && k == 0) {
+        record = true;
+      } else {
+        product *= dim_len[id];
+      }
+    }
+    if (!attributes()) return 0;
+    const std::size_t size = external_size(in.uint(4));
+    in.uint(count);  // vsize (not trusted: saturates for > 4 GiB variables)
+    const unsigned long long begin = in.uint(offset);
+    if (size == 0) return 0;
+    extents.push_back({begin, product * size, record});
+  }
+  if (!in.ok()) return 0;
+  // Record size as netCDF-C lays it out: each record variable padded to 4
+  // bytes, except when there is exactly one record variable (then unpadded).
+  unsigned long long recsize = 0, nrecvars = 0;
+  for (const auto& e : extents)
+    if (e.record) {
+      recsize += HeaderStream::pad4(e.bytes);
+      ++nrecvars;
+    }
+  if (nrecvars == 1)
+    for (const auto& e : extents)
+      if (e.record) recsize = e.bytes;
+  // Smallest size that holds the last value of every variable (padding after
+  // it is not required).
+  unsigned long long need = 0;
+  for (const auto& e : extents) {
+    if (e.bytes == 0 || (e.record && numrecs == 0)) continue;
+    const unsigned long long end =
+        e.record ? e.begin + (numrecs - 1) * recsize + e.bytes : e.begin + e.bytes;
+    need = std::max(need, end);
+  }
+  return need;
+}
+
+// ---- the height-variable layout ---------------------------------------------
+
+enum class DimRole { time, lat, lon, single };
+
+struct VarSummary {
+  int id = -1;
+  std::string name;
+  nc_type type = NC_NAT;
+  std::vector<int> dims;
+  std::string standard_name;
+};
+
+}  // namespace
+
+// ---- CivilTime ------------------------------------------------------------------
+
+std::string CivilTime::iso() const {
+  int y = year, mo = month, d = day, h = hour, mi = minute;
+  double sec = std::round(second);
+  if (sec >= 60.0) {
+    // Carry into minutes and hours; a carry into the next day would need the
+    // calendar, so within half a second before midnight the seconds are cut.
+    if (mi < 59) {
+      sec = 0.0;
+      ++mi;
+    } else if (h < 23) {
+      sec = 0.0;
+      mi = 0;
+      ++h;
+    } else {
+      sec = 59.0;
+    }
+  }
+  char buffer[64];
+  std::snprintf(buffer, sizeof buffer, "%s%04d-%02d-%02dT%02d:%02d:%02dZ", y < 0 ? "-" : "",
+                y < 0 ? -y : y, mo, d, h, mi, static_cast<int>(sec));
+  return buffer;
+}
+
+CivilTime decode_cf_time(double value, const std::string& units, const std::string& calendar) {
+  const Calendar cal = parse_calendar(calendar);
+  if (!std::isfinite(value)) throw std::invalid_argument("time value is not finite");
+  const std::string u = trim(units);
+  const std::string lu = lower(u);
+  const auto since = lu.find(" since ");
+  if (since == std::string::npos)
+    throw std::invalid_argument("time units \"" + units + "\" are not \"<unit> since <date>\"");
+  const double unit_seconds = time_unit_seconds(trim(u.substr(0, since)));
+  RefTime ref = parse_reference(u.substr(since + 7));
+
+  if (historical_years(cal)) {
+    if (ref.y == 0)
+      throw std::invalid_argument("reference date has year 0, which does not exist in the " +
+                                  lower(trim(calendar.empty() ? "standard" : calendar)) +
+                                  " calendar");
+    if (ref.y < 0) ref.y += 1;  // historical -> astronomical
+  }
+  if (ref.d > days_in_month(cal, ref.y, ref.m))
+    throw std::invalid_argument("reference date \"" + trim(u.substr(since + 7)) +
+                                "\" does not exist in this calendar");
+  long long day = to_day(cal, ref.y, ref.m, ref.d);
+
+  // Split the offset into whole days and seconds without losing integers:
+  // for day units the fractional day is exact; for the others value * unit is
+  // exact while it stays below 2^53 s.
+  double whole_days = 0.0, seconds = 0.0;
+  if (unit_seconds == 86400.0) {
+    whole_days = std::floor(value);
+    seconds = (value - whole_days) * 86400.0;
+  } else {
+    const double total = value * unit_seconds;
+    whole_days = std::floor(total / 86400.0);
+    seconds = total - whole_days * 86400.0;
+  }
+  if (std::fabs(whole_days) > 1e12) throw std::invalid_argument("time value out of range");
+  seconds += ref.seconds_of_day;
+  // Round to microseconds so that 1/3 h style values do not print as xx:59:59.
+  seconds = std::round(seconds * 1e6) / 1e6;
+  const double extra = std::floor(seconds / 86400.0);
+  seconds -= extra * 86400.0;
+  day += static_cast<long long>(whole_days) + static_cast<long long>(extra);
+
+  const Ymd ymd = from_day(cal, day);
+  CivilTime out;
+  long long year = ymd.y;
+  if (historical_years(cal) && year <= 0) year -= 1;  // astronomical -> historical
+  if (year < std::numeric_limits<int>::min() || year > std::numeric_limits<int>::max())
+    throw std::invalid_argument("time value out of range");
+  out.year = static_cast<int>(year);
+  out.month = ymd.m;
+  out.day = ymd.d;
+  const long long whole = static_cast<long long>(std::floor(seconds));
+  out.hour = static_cast<int>(whole / 3600);
+  out.minute = static_cast<int>((whole % 3600) / 60);
+  out.second = seconds - static_cast<double>(whole - whole % 60);
+  return out;
+}
+
+// ---- Reader -----------------------------------------------------------------------
+
+struct Reader::Impl {
+  int ncid = -1;
+  int varid = -1;
+  HeightInfo info;
+  std::vector<DimRole> roles;  // per dimension of the height variable
+  // Unpacking, resolved once (see the notation block at the top).
+  double unsigned_wrap = 0.0;  // 2^bits when _Unsigned = "true" on signed storage, else 0
+  bool has_fill = false;
+  double fill = 0.0;
+  std::vector<double> missing;
+  double vmin = -std::numeric_limits<double>::infinity();
+  double vmax = std::numeric_limits<double>::infinity();
+
+  ~Impl() {
+    if (ncid >= 0) nc_close(ncid);
+  }
+
+  [[noreturn]] void fail(const std::string& variable, const std::string& problem) const {
+    throw InputError(input_message(info.path, variable, problem));
+  }
+  void check(int status, const std::string& variable, const std::string& what) const {
+    if (status != NC_NOERR) fail(variable, what + ": " + nc_message(status));
+  }
+
+  void open(const std::string& path);
+  std::vector<VarSummary> list_variables() const;
+  int choose_variable(const std::vector<VarSummary>& vars, const ReaderOptions& options);
+  void resolve_kind(const VarSummary& v);
+  void resolve_layout(const VarSummary& v, const std::vector<VarSummary>& vars);
+  CoordVar read_coordinate(const VarSummary& c, Axis axis) const;
+  void resolve_units(const ReaderOptions& options);
+  void resolve_packing();
+  std::string dims_text(const std::vector<int>& dims) const;
+  std::size_t dim_length(int dim) const;
+  std::string dim_name(int dim) const;
+};
+
+void Reader::Impl::open(const std::string& path) {
+  info.path = path;
+  int id = -1;
+  const int status = nc_open(path.c_str(), NC_NOWRITE, &id);
+  if (status != NC_NOERR)
+    fail("", "cannot be opened as netCDF (" + nc_message(status) + ")");
+  ncid = id;
+  int format = 0;
+  check(nc_inq_format(ncid, &format), "", "cannot read the file format");
+  switch (format) {
+    case NC_FORMAT_CLASSIC: info.format = "classic"; break;
+    case NC_FORMAT_64BIT_OFFSET: info.format = "64-bit offset"; break;
+    case NC_FORMAT_CDF5: info.format = "CDF5"; break;
+    case NC_FORMAT_NETCDF4: info.format = "netCDF-4"; break;
+    case NC_FORMAT_NETCDF4_CLASSIC: info.format = "netCDF-4 classic model"; break;
+    default: info.format = "unknown"; break;
+  }
+  if (format == NC_FORMAT_CLASSIC || format == NC_FORMAT_64BIT_OFFSET || format == NC_FORMAT_CDF5) {
+    const unsigned long long need = classic_min_size(path, format);
+    std::error_code ec;
+    const auto have = std::filesystem::file_size(path, ec);
+    if (!ec && need > 0 && have < need)
+      fail("", "file is truncated (" + std::to_string(have) + " bytes; its header describes " +
+                   std::to_string(need) + ")");
+  }
+  info.global_attrs = copy_attributes(ncid, NC_GLOBAL);
+}
+
+std::size_t Reader::Impl::dim_length(int dim) const {
+  std::size_t n = 0;
+  check(nc_inq_dimlen(ncid, dim, &n), "", "cannot read a dimension");
+  return n;
+}
+
+std::string Reader::Impl::dim_name(int dim) const {
+  char name[NC_MAX_NAME + 1] = {0};
+  check(nc_inq_dimname(ncid, dim, name), "", "cannot read a dimension");
+  return name;
+}
+
+std::string Reader::Impl::dims_text(const std::vector<int>& dims) const {
+  std::vector<std::string> parts;
+  for (int d : dims) parts.push_back(dim_name(d) + "=" + std::to_string(dim_length(d)));
+  return "(" + join(parts, ", ") + ")";
+}
+
+std::vector<VarSummary> Reader::Impl::list_variables() const {
+  int nvars = 0;
+  check(nc_inq_nvars(ncid, &nvars), "", "cannot list variables");
+  std::vector<VarSummary> out;
+  for (int v = 0; v < nvars; ++v) {
+    VarSummary s;
+    s.id = v;
+    char name[NC_MAX_NAME + 1] = {0};
+    int ndims = 0;
+    check(nc_inq_var(ncid, v, name, &s.type, &ndims, nullptr, nullptr), "", "cannot read a variable");
+    s.name = name;
+    s.dims.resize(ndims);
+    if (ndims) check(nc_inq_vardimid(ncid, v, s.dims.data()), s.name, "cannot read its dimensions");
+    s.standard_name = trim(text_att(ncid, v, "standard_name").value_or(""));
+    out.push_back(std::move(s));
+  }
+  return out;
+}
+
+int Reader::Impl::choose_variable(const std::vector<VarSummary>& vars, const ReaderOptions& options) {
+  if (!options.variable.empty()) {
+    for (const auto& v : vars) {
+      if (v.name != options.variable) continue;
+      if (classify_height_name(v.standard_name) == HeightName::ellipsoid)
+        fail(v.name, ellipsoid_refusal);
+      info.chosen_because = "--variable";
+      return v.id;
+    }
+    std::vector<std::string> names;
+    for (const auto& v : vars) names.push_back(v.name);
+    fail(options.variable, "not found in the file (variables: " +
+                               (names.empty() ? std::string("none") : join(names, ", ")) + ")");
+  }
+
+  std::vector<const VarSummary*> heights, ellipsoidal;
+  for (const auto& v : vars) {
+    const HeightName h = classify_height_name(v.standard_name);
+    if (h == HeightName::absolute || h == HeightName::anomaly) heights.push_back(&v);
+    if (h == HeightName::ellipsoid) ellipsoidal.push_back(&v);
+  }
+  if (heights.size() == 1) {
+    info.chosen_because = "standard_name " + heights[0]->standard_name;
+    return heights[0]->id;
+  }
+  if (heights.size() > 1) {
+    std::vector<std::string> names;
+    for (const auto* v : heights) names.push_back(v->name + " (" + v->standard_name + ")");
+    fail("", "several variables have a CF sea-surface-height standard_name: " + join(names, ", ") +
+                 "; choose one with --variable");
+  }
+  if (!ellipsoidal.empty()) fail(ellipsoidal[0]->name, ellipsoid_refusal);
+
+  // No CF height name: list numeric variables on latitude/longitude dimensions.
+  std::vector<int> lat_dims, lon_dims;
+  for (const auto& v : vars) {
+    if (v.dims.size() != 1) continue;
+    const Axis a = classify_coordinate(ncid, v.id);
+    if (a == Axis::lat) lat_dims.push_back(v.dims[0]);
+    if (a == Axis::lon) lon_dims.push_back(v.dims[0]);
+  }
+  const auto has = [](const std::vector<int>& set, const std::vector<int>& dims) {
+    return std::any_of(dims.begin(), dims.end(), [&](int d) {
+      return std::find(set.begin(), set.end(), d) != set.end();
+    });
+  };
+  std::vector<std::string> candidates;
+  for (const auto& v : vars) {
+    if (v.dims.size() < 2 || !is_numeric_type(v.type)) continue;
+    if (!has(lat_dims, v.dims) || !has(lon_dims, v.dims)) continue;
+    candidates.push_back(v.standard_name.empty() ? v.name
+                                                 : v.name + " (" + v.standard_name + ")");
+  }
+  const std::string names =
+      "sea_surface_height_above_geoid, sea_surface_height_above_geopotential_datum, "
+      "sea_surface_height_above_mean_sea_level, sea_surface_height_above_sea_level, "
+      "sea_surface_height";
+  if (candidates.empty())
+    fail("", "no height variable: no variable has a CF sea-surface-height standard_name (" + names +
+                 ") and no numeric variable lies on latitude/longitude dimensions");
+  fail("", "no variable has a CF sea-surface-height standard_name (" + names +
+               "); candidates on latitude/longitude dimensions: " + join(candidates, ", ") +
+               "; choose one with --variable");
+}
+
+void Reader::Impl::resolve_kind(const VarSummary& v) {
+  info.standard_name = v.standard_name;
+  info.long_name = trim(text_att(ncid, v.id, "long_name").value_or(""));
+  const HeightName h = classify_height_name(v.standard_name);
+  if (h == HeightName::absolute) {
+    info.kind = HeightKind::absolute;
+    info.kind_reason = "standard_name " + v.standard_name + " (height above the geoid)";
+    return;
+  }
+  if (h == HeightName::anomaly) {
+    info.kind = HeightKind::anomaly;
+    info.kind_reason = "standard_name " + v.standard_name + " (height above a mean sea level)";
+    return;
+  }
+  // Chosen by --variable without a CF height name: look for "anomaly"/"sla".
+  const auto says_anomaly = [](const std::string& text) {
+    const std::string t = lower(text);
+    if (t.find("anomal") != std::string::npos) return true;
+    std::string token;
+    for (std::size_t k = 0; k <= t.size(); ++k) {
+      if (k < t.size() && std::isalnum(static_cast<unsigned char>(t[k]))) {
+        token += t[k];
+      } else {
+        if (token == "sla") return true;
+        token.clear();
+      }
+    }
+    return false;
+  };
+  if (says_anomaly(v.name)) {
+    info.kind = HeightKind::anomaly;
+    info.kind_reason = "variable name " + v.name + " says anomaly/sla";
+  } else if (says_anomaly(info.long_name)) {
+    info.kind = HeightKind::anomaly;
+    info.kind_reason = "long_name \"" + info.long_name + "\" says anomaly/sla";
+  } else {
+    info.kind = HeightKind::absolute;
+    info.kind_reason = "no CF height standard_name and no anomaly/sla in name or long_name: "
+                       "assumed absolute";
+  }
+}
+
+CoordVar Reader::Impl::read_coordinate(const VarSummary& c, Axis axis) const {
+  CoordVar out;
+  out.name = c.name;
+  out.dim = dim_name(c.dims[0]);
+  out.nc_type = c.type;
+  out.attrs = copy_attributes(ncid, c.id);
+  const std::size_t n = dim_length(c.dims[0]);
+  if (n == 0) fail(c.name, "dimension " + out.dim + " is empty");
+  if (!is_numeric_type(c.type)) fail(c.name, "coordinate variable is not numeric");
+  out.values.resize(n);
+  check(nc_get_var_double(ncid, c.id, out.values.data()), c.name, "cannot read coordinate values");
+
+  // Values equal to _FillValue/missing_value are missing coordinates (checked
+  // before unpacking, in stored units).
+  std::vector<double> fills;
+  for (const char* name : {"_FillValue", "missing_value"})
+    if (auto a = number_att(ncid, c.id, name)) fills.insert(fills.end(), a->begin(), a->end());
+  for (double v : out.values)
+    if (std::find(fills.begin(), fills.end(), v) != fills.end())
+      fail(c.name, "coordinate contains missing values");
+
+  const double sf = number_att(ncid, c.id, "scale_factor").value_or(std::vector<double>{1.0}).at(0);
+  const double ao = number_att(ncid, c.id, "add_offset").value_or(std::vector<double>{0.0}).at(0);
+  if (sf != 1.0 || ao != 0.0)
+    for (double& v : out.values) v = v * sf + ao;
+
+  for (std::size_t k = 0; k < n; ++k)
+    if (!std::isfinite(out.values[k]))
+      fail(c.name, "coordinate value " + std::to_string(k) + " is not finite");
+  if (n >= 2) {
+    const bool up = out.values[1] > out.values[0];
+    for (std::size_t k = 1; k < n; ++k) {
+      const bool ok = up ? out.values[k] > out.values[k - 1] : out.values[k] < out.values[k - 1];
+      if (!ok)
+        fail(c.name, "coordinate is not strictly monotonic (index " + std::to_string(k - 1) +
+                         " and " + std::to_string(k) + ")");
+    }
+  }
+  if (axis == Axis::lat)
+    for (double v : out.values)
+      if (v < -90.0 || v > 90.0) fail(c.name, "latitude outside [-90, 90] degrees");
+  return out;
+}
+
+void Reader::Impl::resolve_layout(const VarSummary& v, const std::vector<VarSummary>& vars) {
+  // The coordinate of each dimension: the variable named like the dimension
+  // (CF coordinate variable) when it is a recognised axis, else any other 1-D
+  // variable on that dimension that is.
+  const std::size_t nd = v.dims.size();
+  std::vector<Axis> axes(nd, Axis::none);
+  std::vector<const VarSummary*> coords(nd, nullptr);
+  for (std::size_t k = 0; k < nd; ++k) {
+    const std::string dname = dim_name(v.dims[k]);
+    const VarSummary* best = nullptr;
+    Axis best_axis = Axis::none;
+    for (const auto& c : vars) {
+      if (c.dims.size() != 1 || c.dims[0] != v.dims[k] || c.id == v.id) continue;
+      const Axis a = classify_coordinate(ncid, c.id);
+      if (a == Axis::none) continue;
+      if (!best || c.name == dname) {
+        best = &c;
+        best_axis = a;
+      }
+      if (c.name == dname) break;
+    }
+    coords[k] = best;
+    axes[k] = best_axis;
+  }
+
+  const std::string layout = dims_text(v.dims);
+  const std::string expected =
+      "expected (lat, lon) or (time, lat, lon), other dimensions only of size 1";
+  const auto find_axis = [&](Axis a) {
+    std::vector<std::size_t> at;
+    for (std::size_t k = 0; k < nd; ++k)
+      if (axes[k] == a) at.push_back(k);
+    return at;
+  };
+  const auto lat_at = find_axis(Axis::lat);
+  const auto lon_at = find_axis(Axis::lon);
+  if (lat_at.empty())
+    fail(v.name, "no latitude coordinate among its dimensions " + layout +
+                     " (a 1-D variable with units degrees_north, standard_name latitude or axis Y)");
+  if (lon_at.empty())
+    fail(v.name, "no longitude coordinate among its dimensions " + layout +
+                     " (a 1-D variable with units degrees_east, standard_name longitude or axis X)");
+  if (lat_at.size() > 1 || lon_at.size() > 1)
+    fail(v.name, "several latitude or longitude dimensions " + layout + "; " + expected);
+  if (nd < 2 || lon_at[0] != nd - 1 || lat_at[0] != nd - 2)
+    fail(v.name, "unsupported dimension order " + layout + ": latitude is " +
+                     dim_name(v.dims[lat_at[0]]) + ", longitude is " + dim_name(v.dims[lon_at[0]]) +
+                     "; " + expected);
+
+  roles.assign(nd, DimRole::single);
+  roles[nd - 2] = DimRole::lat;
+  roles[nd - 1] = DimRole::lon;
+  int time_k = -1;
+  for (std::size_t k = 0; k + 2 < nd; ++k) {
+    const std::size_t len = dim_length(v.dims[k]);
+    if (axes[k] == Axis::time && time_k < 0) {
+      time_k = static_cast<int>(k);
+      roles[k] = DimRole::time;
+    } else if (len != 1) {
+      fail(v.name, "unsupported dimensions " + layout + ": " + dim_name(v.dims[k]) +
+                       " has size " + std::to_string(len) +
+                       (axes[k] == Axis::time ? " (a second time dimension)"
+                                              : " and is not time (no coordinate variable with "
+                                                "standard_name time, axis T or units \"<unit> "
+                                                "since <date>\")") +
+                       "; " + expected);
+    }
+  }
+
+  info.lat = read_coordinate(*coords[nd - 2], Axis::lat);
+  info.lon = read_coordinate(*coords[nd - 1], Axis::lon);
+  info.ny = info.lat.values.size();
+  info.nx = info.lon.values.size();
+  info.nt = 1;
+  if (time_k >= 0) {
+    const VarSummary& tc = *coords[static_cast<std::size_t>(time_k)];
+    if (dim_length(tc.dims[0]) == 0)
+      fail(tc.name, "time dimension " + dim_name(tc.dims[0]) + " is empty (no time steps)");
+    info.time = read_coordinate(tc, Axis::time);
+    info.nt = info.time->values.size();
+    const auto cal = text_att(ncid, tc.id, "calendar");
+    info.calendar = cal ? lower(trim(*cal)) : "standard";
+    if (info.calendar.empty()) info.calendar = "standard";
+  }
+}
+
+void Reader::Impl::resolve_units(const ReaderOptions& options) {
+  const std::string& var = info.variable;
+  if (!options.units.empty()) {
+    info.units = trim(options.units);
+    info.units_overridden = true;
+  } else {
+    info.units = trim(text_att(ncid, varid, "units").value_or(""));
+    if (info.units.empty())
+      fail(var, "has no units attribute; give the height units with --units (e.g. --units m)");
+  }
+  const std::string source = info.units_overridden ? "--units \"" : "units \"";
+  switch (length_to_metres(info.units, info.to_metres_scale, info.to_metres_offset)) {
+    case UnitStatus::ok:
+      return;
+    case UnitStatus::no_database:
+      fail(var, "the UDUNITS-2 unit database could not be read (check UDUNITS2_XML_PATH)");
+    case UnitStatus::unparsable:
+      fail(var, source + info.units + "\" not understood by UDUNITS-2; give the height units with "
+                                      "--units (e.g. --units m)");
+    case UnitStatus::not_length:
+      fail(var, source + info.units + "\" are not a length; give the height units with --units "
+                                      "(e.g. --units m)");
+  }
+}
+
+void Reader::Impl::resolve_packing() {
+  const std::string& var = info.variable;
+  const nc_type type = info.storage_type;
+  bool bad = false;
+
+  const auto single = [&](const char* name) -> std::optional<double> {
+    auto a = number_att(ncid, varid, name, &bad);
+    if (bad) fail(var, std::string("attribute ") + name + " is not numeric");
+    if (!a) return std::nullopt;
+    return a->at(0);
+  };
+  const auto sf = single("scale_factor");
+  const auto ao = single("add_offset");
+  info.packed = sf.has_value() || ao.has_value();
+  info.scale_factor = sf.value_or(1.0);
+  info.add_offset = ao.value_or(0.0);
+  if (!std::isfinite(info.scale_factor) || !std::isfinite(info.add_offset) ||
+      info.scale_factor == 0.0)
+    fail(var, "scale_factor/add_offset are not finite and non-zero");
+
+  // _Unsigned = "true" on signed integer storage (netCDF-3 convention for
+  // unsigned data, NUG "Attribute Conventions").
+  const std::string uns = lower(trim(text_att(ncid, varid, "_Unsigned").value_or("")));
+  const bool unsigned_data = uns == "true" && is_signed_integer_type(type);
+  unsigned_wrap = unsigned_data ? std::ldexp(1.0, type_bits(type)) : 0.0;
+
+  // Attribute values of the storage type follow the data's reinterpretation;
+  // float storage compares at float precision (a double attribute such as
+  // 0.1 would otherwise never equal the stored 0.1f).
+  const auto to_raw = [&](double v, nc_type att_type) {
+    if (unsigned_data && att_type == type && v < 0) v += unsigned_wrap;
+    if (type == NC_FLOAT && std::isfinite(v) && std::fabs(v) <= std::numeric_limits<float>::max())
+      v = static_cast<double>(static_cast<float>(v));
+    return v;
+  };
+
+  nc_type att_type = NC_NAT;
+  const auto fill_att = number_att(ncid, varid, "_FillValue", &bad, &att_type);
+  if (bad) fail(var, "attribute _FillValue is not numeric");
+  if (fill_att) {
+    has_fill = true;
+    fill = to_raw(fill_att->at(0), att_type);
+  } else {
+    // netCDF default fill of the type (netcdf.h); not for byte types, whose
+    // whole range is usually data (netCDF4-python does the same).
+    has_fill = true;
+    switch (type) {
+      case NC_SHORT: fill = NC_FILL_SHORT; break;
+      case NC_USHORT: fill = NC_FILL_USHORT; break;
+      case NC_INT: fill = NC_FILL_INT; break;
+      case NC_UINT: fill = NC_FILL_UINT; break;
+      case NC_INT64: fill = static_cast<double>(NC_FILL_INT64); break;
+      case NC_UINT64: fill = static_cast<double>(NC_FILL_UINT64); break;
+      case NC_FLOAT: fill = static_cast<double>(NC_FILL_FLOAT); break;
+      case NC_DOUBLE: fill = NC_FILL_DOUBLE; break;
+      default: has_fill = false; break;
+    }
+    if (has_fill && unsigned_data && fill < 0) fill += unsigned_wrap;
+  }
+  if (has_fill) info.fill_value = fill;
+
+  auto mv = number_att(ncid, varid, "missing_value", &bad, &att_type);
+  if (bad) fail(var, "attribute missing_value is not numeric");
+  if (mv)
+    for (double v : *mv) missing.push_back(to_raw(v, att_type));
+  info.missing_values = missing;
+
+  auto range = number_att(ncid, varid, "valid_range", &bad, &att_type);
+  if (bad) fail(var, "attribute valid_range is not numeric");
+  if (range) {
+    if (range->size() != 2) fail(var, "attribute valid_range does not have two values");
+    vmin = to_raw((*range)[0], att_type);
+    vmax = to_raw((*range)[1], att_type);
+  } else {
+    if (auto a = number_att(ncid, varid, "valid_min", &bad, &att_type)) {
+      if (bad) fail(var, "attribute valid_min is not numeric");
+      vmin = to_raw(a->at(0), att_type);
+    }
+    if (auto a = number_att(ncid, varid, "valid_max", &bad, &att_type)) {
+      if (bad) fail(var, "attribute valid_max is not numeric");
+      vmax = to_raw(a->at(0), att_type);
+    }
+  }
+  if (std::isfinite(vmin)) info.valid_min = vmin;
+  if (std::isfinite(vmax)) info.valid_max = vmax;
+  if (vmin > vmax) fail(var, "valid minimum exceeds valid maximum");
+}
+
+Reader::Reader(const std::string& path, const ReaderOptions& options)
+    : impl_(std::make_unique<Impl>()) {
+  Impl& m = *impl_;
+  m.open(path);
+  const auto vars = m.list_variables();
+  m.varid = m.choose_variable(vars, options);
+  const VarSummary& v = vars[static_cast<std::size_t>(m.varid)];
+  m.info.variable = v.name;
+  m.info.storage_type = v.type;
+  if (!is_numeric_type(v.type)) m.fail(v.name, "is not a numeric variable");
+  m.resolve_kind(v);
+  m.resolve_layout(v, vars);
+  m.resolve_units(options);
+  m.resolve_packing();
+  m.info.variable_attrs = copy_attributes(m.ncid, m.varid);
+}
+
+Reader::~Reader() = default;
+Reader::Reader(Reader&&) noexcept = default;
+Reader& Reader::operator=(Reader&&) noexcept = default;
+
+const HeightInfo& Reader::info() const { return impl_->info; }
+
+void Reader::read_rows(std::size_t t, std::size_t j0, std::size_t nrows, Field& out) {
+  Impl& m = *impl_;
+  const HeightInfo& info = m.info;
+  if (t >= info.nt || j0 > info.ny || nrows > info.ny - j0)
+    throw std::out_of_range("Reader::read_rows: time step or rows outside the grid");
+  out.ny = nrows;
+  out.nx = info.nx;
+  out.data.assign(nrows * info.nx, 0.0);
+  if (nrows == 0) return;
+
+  const std::size_t nd = m.roles.size();
+  std::vector<std::size_t> start(nd, 0), count(nd, 1);
+  for (std::size_t k = 0; k < nd; ++k) {
+    switch (m.roles[k]) {
+      case DimRole::time: start[k] = t; break;
+      case DimRole::lat: start[k] = j0; count[k] = nrows; break;
+      case DimRole::lon: count[k] = info.nx; break;
+      case DimRole::single: break;
+    }
+  }
+  // lat and lon are the last two dimensions, so the hyperslab is row-major
+  // nrows x nx, the layout of Field.
+  const int status = nc_get_vara_double(m.ncid, m.varid, start.data(), count.data(), out.data.data());
+  if (status != NC_NOERR)
+    m.fail(info.variable, "cannot read rows " + std::to_string(j0) + ".." +
+                              std::to_string(j0 + nrows - 1) + " of time step " + std::to_string(t) +
+                              " (" + nc_message(status) + ")");
+
+  const double nan = std::numeric_limits<double>::quiet_NaN();
+  const double sf = info.scale_factor, ao = info.add_offset;
+  const double sc = info.to_metres_scale, of = info.to_metres_offset;
+  const double wrap = m.unsigned_wrap;
+  const bool has_fill = m.has_fill;
+  const double fill = m.fill, lo = m.vmin, hi = m.vmax;
+  const std::vector<double>& missing = m.missing;
+  for (double& v : out.data) {
+    double raw = v;
+    if (wrap != 0.0 && raw < 0.0) raw += wrap;
+    // NaN-safe: !(lo <= raw && raw <= hi) is true for NaN.
+    bool gone = !std::isfinite(raw) || !(lo <= raw && raw <= hi) || (has_fill && raw == fill);
+    for (double mv : missing) gone = gone || raw == mv;
+    v = gone ? nan : (raw * sf + ao) * sc + of;  // [CF 8.1] unpack, then UDUNITS to metres
+  }
+}
+
+CivilTime Reader::date(std::size_t t) const {
+  const Impl& m = *impl_;
+  if (!m.info.time) m.fail(m.info.variable, "has no time dimension");
+  const CoordVar& tc = *m.info.time;
+  if (t >= tc.values.size()) throw std::out_of_range("Reader::date: time step outside the axis");
+  std::string units;
+  for (const auto& a : tc.attrs)
+    if (a.name == "units") units = a.text;
+  try {
+    return decode_cf_time(tc.values[t], units, m.info.calendar);
+  } catch (const std::invalid_argument& e) {
+    m.fail(tc.name, e.what());
+  }
+}
+
+}  // namespace seatilt
