@@ -4,6 +4,7 @@
 #include <CLI/CLI.hpp>
 
 #include <string>
+#include <vector>
 
 #include "seatilt/kernel.hpp"
 #include "seatilt/reader.hpp"
@@ -25,13 +26,21 @@ void info(const std::string& message);
 const std::string& command_line();
 void set_command_line(int argc, char** argv);
 
-/// Registers the `currents` subcommand's options.
-CLI::App* add_currents(CLI::App& app);
-/// Runs `currents` after parsing; returns the exit code (0, 5) or throws seatilt::Error.
-int run_currents_command();
-/// Registers the `inspect` subcommand's options.
-CLI::App* add_inspect(CLI::App& app);
-/// Runs `inspect` after parsing; returns the exit code or throws seatilt::Error.
-int run_inspect_command();
+/// A subcommand: ADD registers its options on the main app and returns the
+/// subcommand; RUN executes it after parsing and returns the exit code (or
+/// throws seatilt::Error). Each src/cli/<command>.cpp registers itself with a
+/// namespace-scope `const bool registered = register_command(...)`, so adding
+/// a command touches no shared file but CMakeLists.txt.
+struct Command {
+  const char* name;
+  CLI::App* (*add)(CLI::App& app);
+  int (*run)();
+};
+
+/// Adds COMMAND to the registry; returns true (for static registration).
+bool register_command(const Command& command);
+
+/// Every registered command, sorted by name.
+const std::vector<Command>& commands();
 
 }  // namespace seatilt::cli

@@ -88,7 +88,6 @@ CurrentsOptions resolve_options() {
   return o;
 }
 
-}  // namespace
 
 CLI::App* add_currents(CLI::App& app) {
   CLI::App* c = app.add_subcommand(
@@ -186,5 +185,9 @@ int run_currents_command() {
   if (failed == args.inputs.size()) return static_cast<int>(last_error.code());
   return static_cast<int>(ExitCode::batch);
 }
+
+}  // namespace
+
+const bool registered_currents = register_command({"currents", add_currents, run_currents_command});
 
 }  // namespace seatilt::cli

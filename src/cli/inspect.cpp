@@ -64,7 +64,6 @@ const char* storage_name(int t) {
   }
 }
 
-}  // namespace
 
 CLI::App* add_inspect(CLI::App& app) {
   CLI::App* c = app.add_subcommand("inspect", "explain how a height file would be read");
@@ -177,5 +176,9 @@ int run_inspect_command() {
   std::fputs(o.str().c_str(), stdout);
   return 0;
 }
+
+}  // namespace
+
+const bool registered_inspect = register_command({"inspect", add_inspect, run_inspect_command});
 
 }  // namespace seatilt::cli

@@ -2,6 +2,7 @@
 // to the exit codes of README.md.
 #include <unistd.h>
 
+#include <algorithm>
 #include <cstdio>
 #include <iostream>
 #include <string>
@@ -27,6 +28,22 @@ std::string quote(const std::string& s) {
 
 std::string versions() { return version_report(); }
 }  // namespace
+
+namespace {
+std::vector<Command>& registry() {
+  static std::vector<Command> r;
+  return r;
+}
+}  // namespace
+
+bool register_command(const Command& command) {
+  auto& r = registry();
+  r.push_back(command);
+  std::sort(r.begin(), r.end(),
+            [](const Command& a, const Command& b) { return std::string(a.name) < b.name; });
+  return true;
+}
+const std::vector<Command>& commands() { return registry(); }
 
 bool chatty() { return verbose_flag || isatty(STDERR_FILENO) != 0; }
 void set_verbose(bool on) { verbose_flag = on; }
@@ -60,13 +77,13 @@ int main(int argc, char** argv) {
   bool verbose = false;
   app.add_flag("--verbose", verbose, "informational lines on stderr even when not a terminal");
   app.set_version_flag("--version", cli::versions(), "print the version and library versions");
-  CLI::App* currents = cli::add_currents(app);
-  CLI::App* inspect = cli::add_inspect(app);
+  std::vector<std::pair<CLI::App*, int (*)()>> subs;
+  for (const cli::Command& c : cli::commands()) subs.emplace_back(c.add(app), c.run);
   try {
     app.parse(argc, argv);
     cli::set_verbose(verbose);
-    if (currents->parsed()) return cli::run_currents_command();
-    if (inspect->parsed()) return cli::run_inspect_command();
+    for (const auto& [sub, run] : subs)
+      if (sub->parsed()) return run();
     return static_cast<int>(ExitCode::usage);
   } catch (const CLI::CallForHelp& e) {
     return app.exit(e);
