@@ -167,7 +167,7 @@ const char* to_string(EarthModel m) { return m == EarthModel::sphere ? "sphere" 
 std::string gravity_description(const CurrentsOptions& o) {
   switch (o.gravity) {
     case GravityModel::standard: return "standard 9.80665 m s-2";
-    case GravityModel::wgs84: return "wgs84 normal gravity at latitude";
+    case GravityModel::wgs84: return "wgs84 normal gravity";
     case GravityModel::constant: {
       std::ostringstream s;
       s.precision(10);
