@@ -10,6 +10,7 @@
 
 #include "cli.hpp"
 #include "seatilt/error.hpp"
+#include "seatilt/parallel.hpp"
 #include "seatilt/product.hpp"
 
 namespace seatilt::cli {
@@ -144,9 +145,15 @@ int run_currents_command() {
   if (to_dir && !is_directory(args.output))
     throw OutputError(args.output + ": output folder does not exist");
 
-  std::size_t failed = 0;
+  // Under mpirun each rank takes every size()-th input (parallel.hpp); serial
+  // runs own them all.
+  ParallelSession mpi;
+  std::size_t failed = 0, owned = 0;
   Error last_error(ExitCode::ok, "");
-  for (const std::string& input : args.inputs) {
+  for (std::size_t k = 0; k < args.inputs.size(); ++k) {
+    if (!mpi.owns(k)) continue;
+    ++owned;
+    const std::string& input = args.inputs[k];
     CurrentsJob job;
     job.input = input;
     job.output = to_dir ? (args.output.back() == '/' ? args.output : args.output + "/") +
@@ -173,17 +180,17 @@ int run_currents_command() {
            " cells, " + std::to_string(s.cells - s.valid) + " masked, " +
            std::to_string(s.flagged) + " flagged, " + std::to_string(secs) + " s");
     } catch (const Error& e) {
-      if (args.inputs.size() == 1) throw;
+      if (args.inputs.size() == 1 && !mpi.active()) throw;
       print_error(e.what());
       last_error = e;
       ++failed;
     }
   }
-  if (failed == 0) return 0;
-  info(std::to_string(failed) + " of " + std::to_string(args.inputs.size()) + " inputs failed");
-  // Every input failed: the batch did nothing, report the (last) cause itself.
-  if (failed == args.inputs.size()) return static_cast<int>(last_error.code());
-  return static_cast<int>(ExitCode::batch);
+  if (failed > 0)
+    info(std::to_string(failed) + " of " + std::to_string(owned) + " inputs failed");
+  // No failure: 0. Every input failed: the batch did nothing, report the
+  // (last) cause itself. Otherwise 5. Combined over ranks under MPI.
+  return mpi.batch_exit_code(failed, owned, static_cast<int>(last_error.code()));
 }
 
 }  // namespace
