@@ -65,6 +65,7 @@ CurrentsSummary run_currents(const CurrentsJob& job) {
   for (std::size_t t = 0; t < info.nt; ++t) {
     std::size_t valid_height = 0;
     for (const Band& b : plan_bands(ny, rows)) {
+      if (job.between_bands) job.between_bands();
       // velocity rows [v0, v1) cover the diagnostic halo; height rows [e0, e1) theirs.
       const std::size_t v0 = b.j0 >= hd ? b.j0 - hd : 0;
       const std::size_t v1 = std::min(ny, b.j0 + b.n + hd);

@@ -50,6 +50,10 @@ struct CurrentsJob {
   std::string command_line;         ///< for the history attribute
   std::size_t band_rows = 0;        ///< 0 = from memory_bytes
   std::size_t memory_bytes = 256u << 20;
+  /// Called on the calling thread before each row band; may throw to abandon
+  /// the file (the writer then removes its temporary file). Used by `run` to
+  /// honour SIGTERM/SIGINT between bands.
+  void (*between_bands)() = nullptr;
 };
 
 /// What a run did (for logs and the demo summary).
