@@ -10,6 +10,7 @@
 #include <string>
 
 #include "seatilt/error.hpp"
+#include "stencil.hpp"
 
 namespace seatilt {
 
@@ -18,92 +19,8 @@ namespace {
 constexpr double pi = 3.14159265358979323846;
 constexpr double nan = std::numeric_limits<double>::quiet_NaN();
 
-// Centred first-derivative weights for offsets +1..+hw (antisymmetric), from
-// [1] (REFERENCES.md §3): row hw-1 is the stencil of half-width hw.
-constexpr double c1[3][3] = {
-    {1.0 / 2.0, 0.0, 0.0},
-    {8.0 / 12.0, -1.0 / 12.0, 0.0},
-    {45.0 / 60.0, -9.0 / 60.0, 1.0 / 60.0},
-};
-// Centred second-derivative weights: centre, then offsets +-1..+-hw.
-constexpr double c2[3][4] = {
-    {-2.0, 1.0, 0.0, 0.0},
-    {-30.0 / 12.0, 16.0 / 12.0, -1.0 / 12.0, 0.0},
-    {-490.0 / 180.0, 270.0 / 180.0, -27.0 / 180.0, 2.0 / 180.0},
-};
-
-// First derivative along a line by the stencil ladder. val(m) gives the
-// function at offset m (NaN when missing), crd(m) the coordinate (finite
-// wherever val may be finite). Dividing the stencil sum of val by the same
-// stencil's sum of crd gives d val / d crd for any smooth axis spacing.
-template <class Val, class Crd>
-Derivative ladder_d1(const Val& val, const Crd& crd, int hw, bool fallback) {
-  Derivative d;
-  for (int h = hw; h >= 1; --h) {
-    bool ok = true;
-    for (int m = 1; m <= h && ok; ++m) ok = !std::isnan(val(m)) && !std::isnan(val(-m));
-    if (ok) {
-      double num = 0.0, den = 0.0;
-      for (int m = h; m >= 1; --m) {
-        num += c1[h - 1][m - 1] * (val(m) - val(-m));
-        den += c1[h - 1][m - 1] * (crd(m) - crd(-m));
-      }
-      d.value = num / den;
-      d.status = h == hw ? Derivative::full : Derivative::shortened;
-      return d;
-    }
-    if (!fallback) return d;
-  }
-  const double v0 = val(0);
-  if (std::isnan(v0)) return d;
-  // One-sided, second order: (-3 f0 + 4 f1 - f2) / 2h, and its mirror.
-  for (int s : {1, -1}) {
-    const double v1 = val(s), v2 = val(2 * s);
-    if (!std::isnan(v1) && !std::isnan(v2)) {
-      d.value = (-3.0 * v0 + 4.0 * v1 - v2) / (-3.0 * crd(0) + 4.0 * crd(s) - crd(2 * s));
-      d.status = Derivative::shortened;
-      return d;
-    }
-  }
-  // One-sided, first order: (f1 - f0) / h.
-  for (int s : {1, -1}) {
-    const double v1 = val(s);
-    if (!std::isnan(v1)) {
-      d.value = (v1 - v0) / (crd(s) - crd(0));
-      d.status = Derivative::shortened;
-      return d;
-    }
-  }
-  return d;
-}
-
-// Second derivative along a line with centred stencils (shortened with
-// fallback). Non-uniform axis: f_xx = (f_jj - f_x x_jj) / x_j^2, each index
-// derivative taken with the stencil of the same half-width.
-template <class Val, class Crd>
-Derivative ladder_d2(const Val& val, const Crd& crd, int hw, bool fallback) {
-  Derivative d;
-  const double v0 = val(0);
-  if (std::isnan(v0)) return d;
-  for (int h = hw; h >= 1; --h) {
-    bool ok = true;
-    for (int m = 1; m <= h && ok; ++m) ok = !std::isnan(val(m)) && !std::isnan(val(-m));
-    if (ok) {
-      double fj = 0.0, xj = 0.0, fjj = c2[h - 1][0] * v0, xjj = c2[h - 1][0] * crd(0);
-      for (int m = h; m >= 1; --m) {
-        fj += c1[h - 1][m - 1] * (val(m) - val(-m));
-        xj += c1[h - 1][m - 1] * (crd(m) - crd(-m));
-        fjj += c2[h - 1][m] * (val(m) + val(-m));
-        xjj += c2[h - 1][m] * (crd(m) + crd(-m));
-      }
-      d.value = (fjj - (fj / xj) * xjj) / (xj * xj);
-      d.status = h == hw ? Derivative::full : Derivative::shortened;
-      return d;
-    }
-    if (!fallback) return d;
-  }
-  return d;
-}
+using detail::ladder_d1;  // stencil ladder (stencil.hpp)
+using detail::ladder_d2;
 
 }  // namespace
 
@@ -309,6 +226,221 @@ void GeostrophicKernel::compute_row(const Field& eta, std::size_t e0, std::size_
     } else {  // blend [3]: W_b u_b + (1 - W_b) u_f; at f = 0 the f-plane weight is 0
       const double w = r.w_beta;
       if (r.f == 0.0) { uu = ub; vv = vb; }
+      else { uu = w * ub + (1.0 - w) * uf; vv = w * vb + (1.0 - w) * vf; }
+      flag |= quality::blended;
+    }
+    if (std::isnan(uu) || std::isnan(vv)) {
+      flags[i] = quality::masked_coast;
+      continue;
+    }
+    u[i] = uu;
+    v[i] = vv;
+    flags[i] = flag;
+  }
+}
+
+// ---- projected and curvilinear grids (kernel.hpp) ------------------------------------
+// Notation: c column coordinate, r row coordinate (grid.hpp); B node metric;
+// eta_e, eta_n east and north derivatives of eta (m-1 x height units).
+
+CurvilinearDifferentiator::CurvilinearDifferentiator(const CurvilinearGrid& grid, int order,
+                                                     bool fallback)
+    : grid_(grid), hw_(order / 2), fallback_(fallback) {}
+
+Derivative CurvilinearDifferentiator::d_col(const Field& band, std::size_t b0, std::size_t j,
+                                            std::size_t i) const {
+  const double* row = band.row(j - b0);
+  const auto nx = static_cast<long>(grid_.nx());
+  const auto& c = grid_.col_coord();
+  const long ii = static_cast<long>(i);
+  auto crd = [&](int m) {
+    const long k = ii + m;
+    return (k >= 0 && k < nx) ? c[static_cast<std::size_t>(k)] : nan;
+  };
+  auto val = [&](int m) {
+    const long k = ii + m;
+    return (k >= 0 && k < nx) ? row[k] : nan;
+  };
+  return ladder_d1(val, crd, hw_, fallback_);
+}
+
+Derivative CurvilinearDifferentiator::d_row(const Field& band, std::size_t b0, std::size_t j,
+                                            std::size_t i) const {
+  const long lo = static_cast<long>(b0), hi = static_cast<long>(b0 + band.ny);
+  const long jj = static_cast<long>(j);
+  const auto& r = grid_.row_coord();
+  auto crd = [&](int m) {
+    const long k = jj + m;
+    return (k >= 0 && k < static_cast<long>(r.size())) ? r[static_cast<std::size_t>(k)] : nan;
+  };
+  auto val = [&](int m) {
+    const long k = jj + m;
+    return (k >= lo && k < hi) ? band.at(static_cast<std::size_t>(k - lo), i) : nan;
+  };
+  return ladder_d1(val, crd, hw_, fallback_);
+}
+
+Gradient CurvilinearDifferentiator::gradient(const Field& band, std::size_t b0, std::size_t j,
+                                             std::size_t i) const {
+  Gradient g;
+  if (grid_.at_pole(j, i)) return g;
+  const Derivative dc = d_col(band, b0, j, i);
+  if (dc.status == Derivative::failed) return g;
+  const Derivative dr = d_row(band, b0, j, i);
+  if (dr.status == Derivative::failed) return g;
+  const DirectionalMetric& b = grid_.metric(j, i);
+  g.e = b.e_c * dc.value + b.e_r * dr.value;  // d/de = B.e_c d/dc + B.e_r d/dr (grid.hpp)
+  g.n = b.n_c * dc.value + b.n_r * dr.value;  // d/dn = B.n_c d/dc + B.n_r d/dr
+  g.status = (dc.status == Derivative::shortened || dr.status == Derivative::shortened)
+                 ? Derivative::shortened
+                 : Derivative::full;
+  return g;
+}
+
+CurvilinearGeostrophicKernel::CurvilinearGeostrophicKernel(const CurvilinearGrid& grid,
+                                                           const CurrentsOptions& options)
+    : grid_(grid), options_(options),
+      diff_(grid, options.order, options.coast == CoastMethod::one_sided) {
+  validate(options_);
+  for (std::size_t j = 0; j < grid.ny() && !nested_; ++j)
+    for (std::size_t i = 0; i < grid.nx() && !nested_; ++i) {
+      const Mode m = mode_of(j, i);
+      nested_ = m == beta_plane || m == blend;
+    }
+}
+
+CurvilinearGeostrophicKernel::Mode CurvilinearGeostrophicKernel::mode_of(std::size_t j,
+                                                                         std::size_t i) const {
+  const double lat = grid_.lat_deg(j, i);
+  if (grid_.at_pole(j, i)) return pole;
+  const bool in_band = std::fabs(lat) < options_.equator_band_deg;
+  if (in_band && options_.equator == EquatorMethod::mask) return masked_equator;
+  if (in_band && options_.equator == EquatorMethod::beta) return beta_plane;
+  if (in_band && options_.equator == EquatorMethod::blend) return blend;
+  if (coriolis(lat) == 0.0) return masked_equator;  // band 0 with a node on the equator
+  return f_plane;
+}
+
+std::size_t CurvilinearGeostrophicKernel::halo_rows() const {
+  const auto h = static_cast<std::size_t>(diff_.reach());
+  return nested_ ? 2 * h : h;
+}
+
+void CurvilinearGeostrophicKernel::compute(const Field& eta, std::size_t e0, std::size_t j0,
+                                           std::size_t n, Field& u, Field& v,
+                                           std::vector<std::uint8_t>& flags) const {
+  const std::size_t ny = grid_.ny(), nx = grid_.nx(), h = halo_rows();
+  const std::size_t need_lo = j0 >= h ? j0 - h : 0;
+  const std::size_t need_hi = std::min(ny, j0 + n + h);
+  if (eta.nx != nx || e0 > need_lo || e0 + eta.ny < need_hi || j0 + n > ny)
+    throw std::logic_error(
+        "CurvilinearGeostrophicKernel::compute: height band does not cover the halo");
+  u = Field(n, nx, nan);
+  v = Field(n, nx, nan);
+  flags.assign(n * nx, 0);
+  const auto rows = static_cast<long>(n);
+#pragma omp parallel for schedule(dynamic, 4)
+  for (long r = 0; r < rows; ++r) {
+    const auto k = static_cast<std::size_t>(r);
+    compute_row(eta, e0, j0 + k, u.row(k), v.row(k), flags.data() + k * nx);
+  }
+}
+
+void CurvilinearGeostrophicKernel::compute_row(const Field& eta, std::size_t e0, std::size_t j,
+                                               double* u, double* v,
+                                               std::uint8_t* flags) const {
+  constexpr double theta_deg = 2.2;  // blend e-folding latitude [3] (from memory)
+  const std::size_t nx = grid_.nx();
+  const int hw = options_.order / 2, reach = diff_.reach();
+  const bool fallback = options_.coast == CoastMethod::one_sided;
+  const double* eta_row = eta.row(j - e0);
+  const long lo = static_cast<long>(e0), hi = static_cast<long>(e0 + eta.ny);
+  const auto& cc = grid_.col_coord();
+  const auto& rc = grid_.row_coord();
+  for (std::size_t i = 0; i < nx; ++i) {
+    if (std::isnan(eta_row[i])) { flags[i] = quality::missing_height; continue; }
+    const Mode mode = mode_of(j, i);
+    if (mode == pole) { flags[i] = quality::masked_pole; continue; }
+    if (mode == masked_equator) { flags[i] = quality::masked_equator; continue; }
+    const double lat = grid_.lat_deg(j, i);
+    const double f = coriolis(lat);
+    double g = options_.gravity_value;
+    if (options_.gravity == GravityModel::standard) g = earth::standard_gravity;
+    else if (options_.gravity == GravityModel::wgs84) g = normal_gravity(lat);
+    std::uint8_t flag = 0;
+    double uf = nan, vf = nan, ub = nan, vb = nan;
+    if (mode == f_plane || mode == blend) {
+      const Gradient gr = diff_.gradient(eta, e0, j, i);
+      if (gr.status != Derivative::failed && f != 0.0) {
+        uf = -g / f * gr.n;  // u = -(g/f) d eta/dn   [4] ch. 10
+        vf = g / f * gr.e;   // v =  (g/f) d eta/de
+        if (gr.status == Derivative::shortened) flag |= quality::one_sided;
+      }
+    }
+    if (mode == beta_plane || mode == blend) {
+      // Inner gradients at the neighbours along the row and the column, at
+      // every offset the outer ladder may ask for (-reach..reach, reach <= 3).
+      double ce[7], cn[7], re[7], rn[7];
+      bool inner_shortened = false;
+      for (int m = -reach; m <= reach; ++m) {
+        const long ic = static_cast<long>(i) + m, jr = static_cast<long>(j) + m;
+        Gradient gc, gr;
+        if (ic >= 0 && ic < static_cast<long>(nx))
+          gc = diff_.gradient(eta, e0, j, static_cast<std::size_t>(ic));
+        if (jr >= lo && jr < hi)
+          gr = diff_.gradient(eta, e0, static_cast<std::size_t>(jr), i);
+        const bool okc = gc.status != Derivative::failed, okr = gr.status != Derivative::failed;
+        // Offsets beyond hw enter only a fallback stencil, which is flagged anyway.
+        if (m >= -hw && m <= hw)
+          inner_shortened = inner_shortened || gc.status == Derivative::shortened ||
+                            gr.status == Derivative::shortened;
+        ce[m + reach] = okc ? gc.e : nan;
+        cn[m + reach] = okc ? gc.n : nan;
+        re[m + reach] = okr ? gr.e : nan;
+        rn[m + reach] = okr ? gr.n : nan;
+      }
+      const auto crd_c = [&](int m) {
+        const long k = static_cast<long>(i) + m;
+        return (k >= 0 && k < static_cast<long>(nx)) ? cc[static_cast<std::size_t>(k)] : nan;
+      };
+      const auto crd_r = [&](int m) {
+        const long k = static_cast<long>(j) + m;
+        return (k >= 0 && k < static_cast<long>(rc.size())) ? rc[static_cast<std::size_t>(k)] : nan;
+      };
+      const auto from = [&](const double* a) {
+        return [a, reach](int m) { return (m < -reach || m > reach) ? nan : a[m + reach]; };
+      };
+      const Derivative dnc = ladder_d1(from(cn), crd_c, hw, fallback);
+      const Derivative dnr = ladder_d1(from(rn), crd_r, hw, fallback);
+      const Derivative dec = ladder_d1(from(ce), crd_c, hw, fallback);
+      const Derivative der = ladder_d1(from(re), crd_r, hw, fallback);
+      if (dnc.status != Derivative::failed && dnr.status != Derivative::failed &&
+          dec.status != Derivative::failed && der.status != Derivative::failed) {
+        const DirectionalMetric& b = grid_.metric(j, i);
+        const double phi = lat * pi / 180.0;
+        // beta = 2 Omega cos(phi) / M on the grid's figure (kernel.hpp [2]; grid.hpp beta)
+        double s = 0, c = 0;
+        sincosd(lat, s, c);
+        const double bet = 2.0 * earth::omega * c / meridional_radius(grid_.ellipsoid(), phi);
+        const double eta_nn = b.n_c * dnc.value + b.n_r * dnr.value;  // d/dn (d eta/dn)
+        const double eta_en = b.n_c * dec.value + b.n_r * der.value;  // d/dn (d eta/de)
+        ub = -g / bet * eta_nn;  // u_b = -(g/beta) eta_yy  [2]
+        vb = g / bet * eta_en;   // v_b =  (g/beta) eta_xy  [2]
+        if (inner_shortened || dnc.status == Derivative::shortened ||
+            dnr.status == Derivative::shortened || dec.status == Derivative::shortened ||
+            der.status == Derivative::shortened)
+          flag |= quality::one_sided;
+      }
+    }
+    double uu = nan, vv = nan;
+    if (mode == f_plane) {
+      uu = uf; vv = vf;
+    } else if (mode == beta_plane) {
+      uu = ub; vv = vb;
+      flag |= quality::beta_plane;
+    } else {  // blend [3]: W_b u_b + (1 - W_b) u_f; at f = 0 the f-plane weight is 0
+      const double w = std::exp(-(lat / theta_deg) * (lat / theta_deg));
+      if (f == 0.0) { uu = ub; vv = vb; }
       else { uu = w * ub + (1.0 - w) * uf; vv = w * vb + (1.0 - w) * vf; }
       flag |= quality::blended;
     }

@@ -32,8 +32,10 @@
 #include <limits>
 #include <mutex>
 #include <stdexcept>
+#include <exception>
 #include <utility>
 
+#include "seatilt/chunkio.hpp"
 #include "seatilt/error.hpp"
 
 namespace seatilt {
@@ -792,8 +794,13 @@ struct Reader::Impl {
   std::vector<double> missing;
   double vmin = -std::numeric_limits<double>::infinity();
   double vmax = std::numeric_limits<double>::infinity();
+  // Raw chunk reads (chunkio.hpp), when the layout allows; else nc_get_vara.
+  std::unique_ptr<chunkio::RawInput> raw;
+  std::string read_path;
+  bool cache_sized = false;  // nc_get_vara path: chunk cache set for the band height
 
   ~Impl() {
+    raw.reset();  // HDF5 handle first, then netCDF's
     if (ncid >= 0) nc_close(ncid);
   }
 
@@ -812,6 +819,9 @@ struct Reader::Impl {
   CoordVar read_coordinate(const VarSummary& c, Axis axis) const;
   void resolve_units(const ReaderOptions& options);
   void resolve_packing();
+  void open_raw(const ReaderOptions& options);
+  void size_chunk_cache(std::size_t nrows);
+  void unpack(double* v, std::size_t n) const;
   std::string dims_text(const std::vector<int>& dims) const;
   std::size_t dim_length(int dim) const;
   std::string dim_name(int dim) const;
@@ -1232,6 +1242,140 @@ void Reader::Impl::resolve_packing() {
   if (vmin > vmax) fail(var, "valid minimum exceeds valid maximum");
 }
 
+// ---- raw chunk path and the unpacking of values ---------------------------------------
+
+namespace {
+
+/// chunkio element type of a netCDF numeric type.
+bool element_of(nc_type t, chunkio::ElementType& e) {
+  switch (t) {
+    case NC_BYTE: e = chunkio::ElementType::i8; return true;
+    case NC_UBYTE: e = chunkio::ElementType::u8; return true;
+    case NC_SHORT: e = chunkio::ElementType::i16; return true;
+    case NC_USHORT: e = chunkio::ElementType::u16; return true;
+    case NC_INT: e = chunkio::ElementType::i32; return true;
+    case NC_UINT: e = chunkio::ElementType::u32; return true;
+    case NC_INT64: e = chunkio::ElementType::i64; return true;
+    case NC_UINT64: e = chunkio::ElementType::u64; return true;
+    case NC_FLOAT: e = chunkio::ElementType::f32; return true;
+    case NC_DOUBLE: e = chunkio::ElementType::f64; return true;
+    default: return false;
+  }
+}
+
+/// Largest decoded input chunk read raw (bytes); larger chunks go through
+/// netCDF-C, which streams them through HDF5 instead of holding them.
+/// Rule of thumb (common practice, no source): far above the 1-16 MiB that
+/// producers use, well below the memory of the machines this runs on.
+constexpr std::size_t max_raw_chunk_bytes = std::size_t{256} << 20;
+
+}  // namespace
+
+void Reader::Impl::open_raw(const ReaderOptions& options) {
+  if (!options.raw_chunks) {
+    read_path = "netCDF-C (raw chunk reads switched off)";
+    return;
+  }
+  if (info.format != "netCDF-4" && info.format != "netCDF-4 classic model") {
+    read_path = "netCDF-C (" + info.format + " file)";
+    return;
+  }
+  std::string why;
+  auto r = chunkio::RawInput::open(info.path, info.variable, max_raw_chunk_bytes, why);
+  if (r) {
+    // The HDF5 view must be the netCDF view: same rank, extents and type.
+    const chunkio::ChunkFormat& f = r->format();
+    chunkio::ElementType want{};
+    if (!element_of(info.storage_type, want) || want != f.type) {
+      why = "stored type differs from the netCDF type";
+    } else if (f.dims.size() != roles.size()) {
+      why = "rank differs from the netCDF variable";
+    } else {
+      const std::size_t nd = roles.size();
+      if (f.dims[nd - 2] != info.ny || f.dims[nd - 1] != info.nx) why = "extent differs from netCDF";
+    }
+    if (why.empty()) {
+      raw = std::move(r);
+      read_path = "raw chunks (";
+      read_path += f.shuffle ? (f.deflate ? "shuffle+deflate" : "shuffle") : (f.deflate ? "deflate" : "no filter");
+      read_path += f.swap ? ", byte-swapped)" : ")";
+      return;
+    }
+  }
+  read_path = "netCDF-C (" + why + ")";
+}
+
+void Reader::Impl::size_chunk_cache(std::size_t nrows) {
+  // nc_get_vara path: an HDF5 chunk cache that holds every chunk of one band
+  // plus one chunk row (the halo shared with the next band), instead of
+  // netCDF-C's default, so each chunk is decompressed once per pass.
+  cache_sized = true;
+  if (info.format != "netCDF-4" && info.format != "netCDF-4 classic model") return;
+  int storage = 0;
+  std::vector<std::size_t> chunk(roles.size(), 0);
+  if (nc_inq_var_chunking(ncid, varid, &storage, chunk.data()) != NC_NOERR || storage != NC_CHUNKED)
+    return;
+  std::size_t type_size = 0;
+  if (nc_inq_type(ncid, info.storage_type, nullptr, &type_size) != NC_NOERR) return;
+  const std::size_t nd = roles.size(), cr = std::max<std::size_t>(chunk[nd - 2], 1),
+                    cc = std::max<std::size_t>(chunk[nd - 1], 1);
+  std::size_t chunk_bytes = type_size;
+  for (std::size_t c : chunk) chunk_bytes *= std::max<std::size_t>(c, 1);
+  const std::size_t n = ((nrows + cr - 1) / cr + 1) * ((info.nx + cc - 1) / cc);
+  const std::size_t bytes = std::min<std::size_t>(n * chunk_bytes, std::size_t{1} << 30);
+  nc_set_var_chunk_cache(ncid, varid, bytes, std::max<std::size_t>(4 * n + 1, 521), 0.75f);
+}
+
+void Reader::Impl::unpack(double* values, std::size_t n) const {
+  const double nan = std::numeric_limits<double>::quiet_NaN();
+  const double sf = info.scale_factor, ao = info.add_offset;
+  const double sc = info.to_metres_scale, of = info.to_metres_offset;
+  const double wrap = unsigned_wrap;
+  const double lo = vmin, hi = vmax;
+  for (std::size_t k = 0; k < n; ++k) {
+    double raw_value = values[k];
+    if (wrap != 0.0 && raw_value < 0.0) raw_value += wrap;
+    // NaN-safe: !(lo <= raw && raw <= hi) is true for NaN.
+    bool gone = !std::isfinite(raw_value) || !(lo <= raw_value && raw_value <= hi) ||
+                (has_fill && raw_value == fill);
+    for (double mv : missing) gone = gone || raw_value == mv;
+    values[k] = gone ? nan : (raw_value * sf + ao) * sc + of;  // [CF 8.1] unpack, then UDUNITS to metres
+  }
+}
+
+// ---- FetchedRows ------------------------------------------------------------------
+
+struct FetchedRows::Impl {
+  std::size_t t = 0, j0 = 0, nrows = 0, nx = 0;
+  bool is_raw = false;
+  chunkio::RawRows raw;       // raw path
+  std::vector<double> plain;  // nc_get_vara path: stored values as doubles
+  std::string path, variable;
+};
+
+FetchedRows::FetchedRows() : impl_(std::make_unique<Impl>()) {}
+FetchedRows::~FetchedRows() = default;
+FetchedRows::FetchedRows(FetchedRows&&) noexcept = default;
+FetchedRows& FetchedRows::operator=(FetchedRows&&) noexcept = default;
+
+std::size_t FetchedRows::tasks() const { return impl_ && impl_->is_raw ? impl_->raw.tasks() : 0; }
+std::size_t FetchedRows::rows() const { return impl_ ? impl_->nrows : 0; }
+std::size_t FetchedRows::first_row() const { return impl_ ? impl_->j0 : 0; }
+
+void FetchedRows::run_task(std::size_t k) const {
+  const Impl& m = *impl_;
+  try {
+    m.raw.run_task(k);
+  } catch (const std::exception& e) {
+    throw InputError(input_message(m.path, m.variable,
+                                   "cannot decode rows " + std::to_string(m.j0) + ".." +
+                                       std::to_string(m.j0 + m.nrows - 1) + " of time step " +
+                                       std::to_string(m.t) + " (" + e.what() + ")"));
+  }
+}
+
+// ---- Reader -------------------------------------------------------------------------
+
 Reader::Reader(const std::string& path, const ReaderOptions& options)
     : impl_(std::make_unique<Impl>()) {
   Impl& m = *impl_;
@@ -1247,6 +1391,7 @@ Reader::Reader(const std::string& path, const ReaderOptions& options)
   m.resolve_units(options);
   m.resolve_packing();
   m.info.variable_attrs = copy_attributes(m.ncid, m.varid);
+  m.open_raw(options);
 }
 
 Reader::~Reader() = default;
@@ -1255,15 +1400,32 @@ Reader& Reader::operator=(Reader&&) noexcept = default;
 
 const HeightInfo& Reader::info() const { return impl_->info; }
 
-void Reader::read_rows(std::size_t t, std::size_t j0, std::size_t nrows, Field& out) {
+const std::string& Reader::read_path() const { return impl_->read_path; }
+
+void Reader::fetch_rows(std::size_t t, std::size_t j0, std::size_t nrows, FetchedRows& out) {
   Impl& m = *impl_;
   const HeightInfo& info = m.info;
   if (t >= info.nt || j0 > info.ny || nrows > info.ny - j0)
-    throw std::out_of_range("Reader::read_rows: time step or rows outside the grid");
-  out.ny = nrows;
-  out.nx = info.nx;
-  out.data.assign(nrows * info.nx, 0.0);
-  if (nrows == 0) return;
+    throw std::out_of_range("Reader::fetch_rows: time step or rows outside the grid");
+  if (!out.impl_) out.impl_ = std::make_unique<FetchedRows::Impl>();
+  FetchedRows::Impl& f = *out.impl_;
+  f.t = t;
+  f.j0 = j0;
+  f.nrows = nrows;
+  f.nx = info.nx;
+  f.path = info.path;
+  f.variable = info.variable;
+  f.is_raw = m.raw != nullptr;
+  f.plain.clear();
+  const auto failed = [&](const std::string& why) {
+    m.fail(info.variable, "cannot read rows " + std::to_string(j0) + ".." +
+                              std::to_string(j0 + nrows - 1) + " of time step " +
+                              std::to_string(t) + " (" + why + ")");
+  };
+  if (nrows == 0) {
+    f.is_raw = false;
+    return;
+  }
 
   const std::size_t nd = m.roles.size();
   std::vector<std::size_t> start(nd, 0), count(nd, 1);
@@ -1275,29 +1437,63 @@ void Reader::read_rows(std::size_t t, std::size_t j0, std::size_t nrows, Field& 
       case DimRole::single: break;
     }
   }
-  // lat and lon are the last two dimensions, so the hyperslab is row-major
-  // nrows x nx, the layout of Field.
-  const int status = nc_get_vara_double(m.ncid, m.varid, start.data(), count.data(), out.data.data());
-  if (status != NC_NOERR)
-    m.fail(info.variable, "cannot read rows " + std::to_string(j0) + ".." +
-                              std::to_string(j0 + nrows - 1) + " of time step " + std::to_string(t) +
-                              " (" + nc_message(status) + ")");
-
-  const double nan = std::numeric_limits<double>::quiet_NaN();
-  const double sf = info.scale_factor, ao = info.add_offset;
-  const double sc = info.to_metres_scale, of = info.to_metres_offset;
-  const double wrap = m.unsigned_wrap;
-  const bool has_fill = m.has_fill;
-  const double fill = m.fill, lo = m.vmin, hi = m.vmax;
-  const std::vector<double>& missing = m.missing;
-  for (double& v : out.data) {
-    double raw = v;
-    if (wrap != 0.0 && raw < 0.0) raw += wrap;
-    // NaN-safe: !(lo <= raw && raw <= hi) is true for NaN.
-    bool gone = !std::isfinite(raw) || !(lo <= raw && raw <= hi) || (has_fill && raw == fill);
-    for (double mv : missing) gone = gone || raw == mv;
-    v = gone ? nan : (raw * sf + ao) * sc + of;  // [CF 8.1] unpack, then UDUNITS to metres
+  if (f.is_raw) {
+    // lat and lon are the last two dimensions (resolve_layout); the leading
+    // ones (time, size-1) are fixed indices.
+    try {
+      m.raw->fetch(std::vector<std::size_t>(start.begin(), start.end() - 2), j0, nrows, f.raw);
+    } catch (const std::exception& e) {
+      failed(e.what());
+    }
+    return;
   }
+  if (!m.cache_sized) m.size_chunk_cache(nrows);
+  // The hyperslab is row-major nrows x nx, the layout of Field.
+  f.plain.resize(nrows * info.nx);
+  const int status = nc_get_vara_double(m.ncid, m.varid, start.data(), count.data(), f.plain.data());
+  if (status != NC_NOERR) failed(nc_message(status));
+}
+
+void Reader::unpack_rows(const FetchedRows& in, std::size_t r0, std::size_t r1, Field& out) const {
+  const Impl& m = *impl_;
+  const FetchedRows::Impl& f = *in.impl_;
+  if (r0 > r1 || r1 > f.nrows || out.ny != f.nrows || out.nx != f.nx)
+    throw std::logic_error("Reader::unpack_rows: rows outside the fetched band");
+  for (std::size_t r = r0; r < r1; ++r) {
+    double* row = out.row(r);
+    if (f.is_raw)
+      f.raw.row_as_double(r, row);
+    else
+      std::copy(f.plain.begin() + static_cast<std::ptrdiff_t>(r * f.nx),
+                f.plain.begin() + static_cast<std::ptrdiff_t>((r + 1) * f.nx), row);
+    m.unpack(row, f.nx);
+  }
+}
+
+void Reader::read_rows(std::size_t t, std::size_t j0, std::size_t nrows, Field& out) {
+  FetchedRows fetched;
+  fetch_rows(t, j0, nrows, fetched);
+  out.ny = nrows;
+  out.nx = impl_->info.nx;
+  out.data.assign(nrows * out.nx, 0.0);
+  if (nrows == 0) return;
+  // Decompress the fetched chunks on every OpenMP thread; no netCDF call here.
+  const auto tasks = static_cast<long>(fetched.tasks());
+  std::exception_ptr error;
+#pragma omp parallel for schedule(dynamic, 1) if (tasks > 1)
+  for (long k = 0; k < tasks; ++k) {
+    try {
+      fetched.run_task(static_cast<std::size_t>(k));
+    } catch (...) {
+#pragma omp critical(seatilt_reader_error)
+      if (!error) error = std::current_exception();
+    }
+  }
+  if (error) std::rethrow_exception(error);
+  const auto rows = static_cast<long>(nrows);
+#pragma omp parallel for schedule(static) if (nrows * out.nx > 65536)
+  for (long r = 0; r < rows; ++r)
+    unpack_rows(fetched, static_cast<std::size_t>(r), static_cast<std::size_t>(r) + 1, out);
 }
 
 CivilTime Reader::date(std::size_t t) const {

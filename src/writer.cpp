@@ -9,8 +9,12 @@
 //      variables (chunking, deflate + shuffle, quantize, chunk cache,
 //      _FillValue, attributes), the CF quantization container, global
 //      attributes; nc_enddef; coordinate values (all time steps);
-//   4. write_rows / write_flags / set_global_text in data mode;
-//   5. commit: nc_close, fsync, rename(2) to PATH (renameat2 with
+//   4. direct path (writer.hpp): nc_close, HDF5 reopen, extents set, the
+//      layout of every variable read back; write_rows / write_flags stage
+//      chunk rows and compress complete ones on all threads, store() writes
+//      them with H5Dwrite_chunk; set_global_text reopens with netCDF-C.
+//      netCDF path: write_rows / write_flags / set_global_text in data mode;
+//   5. commit: close (HDF5 or netCDF), fsync, rename(2) to PATH (renameat2 with
 //      RENAME_NOREPLACE without force, so an output that appeared meanwhile
 //      is not clobbered), fsync of the folder.
 // Any failure, or destruction before commit, closes and unlinks the
@@ -26,13 +30,18 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
+#include <omp.h>
+
 #include <algorithm>
+#include <array>
 #include <cerrno>
 #include <cfloat>
 #include <chrono>
 #include <cmath>
 #include <cstdio>
 #include <cstring>
+#include <exception>
+#include <map>
 #include <random>
 #include <set>
 #include <sstream>
@@ -162,6 +171,20 @@ struct VarSlot {
   int varid = -1;
 };
 
+/// Staged chunk row of one variable and step (direct path, write_rows).
+struct Stage {
+  std::vector<unsigned char> values;  // rows x nx elements, fill where not written
+  std::vector<char> filled;           // per row
+  std::size_t missing = 0;            // rows not written yet
+  bool queued = false;                // in Impl::complete
+};
+using StageKey = std::array<std::size_t, 3>;  // var, t, chunk row
+
+/// Above this many bytes of complete staged chunk rows, write_rows compresses
+/// and stores them (rule of thumb, no source: enough chunks for every thread,
+/// little memory).
+constexpr std::size_t flush_bytes = std::size_t{32} << 20;
+
 }  // namespace
 
 struct Writer::Impl {
@@ -177,6 +200,33 @@ struct Writer::Impl {
   std::vector<VarSlot> vars;
   std::vector<float> fbuf;  // conversion buffer reused across write_rows
 
+  // Direct path (writer.hpp). `open` stays true while either library holds
+  // the file; nc_open_ tells which one does.
+  bool direct = false;
+  chunkio::Codec codec = chunkio::Codec::libdeflate;
+  std::string write_path;
+  bool nc_open_ = true;  // netCDF-C holds the file (else HDF5, when direct)
+  std::unique_ptr<chunkio::H5File> h5;
+  std::vector<chunkio::H5Chunked> h5vars;     // parallel to vars while HDF5 holds the file
+  std::vector<chunkio::ChunkFormat> formats;  // per variable, read back from the file once
+  std::map<StageKey, Stage> stages;
+  std::vector<StageKey> complete;  // staged chunk rows with every row written, oldest first
+  std::set<StageKey> stored;       // chunk rows written to the file
+  int writeback_fd = -1;           // read-only descriptor of tmp_path for sync_file_range
+  std::size_t unsynced = 0;        // bytes stored since writeback was last started
+
+  /// Starts writing the stored chunks to disk in the background (Linux
+  /// sync_file_range, SYNC_FILE_RANGE_WRITE: no waiting), so that the fsync
+  /// of commit() has little left to wait for.
+  void start_writeback() noexcept {
+    if (writeback_fd >= 0 && unsynced > 0) {
+#ifdef SYNC_FILE_RANGE_WRITE
+      ::sync_file_range(writeback_fd, 0, 0, SYNC_FILE_RANGE_WRITE);
+#endif
+      unsynced = 0;
+    }
+  }
+
   Impl() = default;
   Impl(const Impl&) = delete;
   Impl& operator=(const Impl&) = delete;
@@ -184,8 +234,14 @@ struct Writer::Impl {
 
   /// Closes (errors ignored) and removes the temporary file; never throws.
   void discard() noexcept {
+    if (writeback_fd >= 0) {
+      ::close(writeback_fd);
+      writeback_fd = -1;
+    }
     if (open) {
-      nc_close(ncid);
+      h5vars.clear();
+      h5.reset();
+      if (nc_open_) nc_close(ncid);
       open = false;
     }
     if (tmp_exists) {
@@ -226,6 +282,25 @@ struct Writer::Impl {
                         int significant_digits, int deflate);
   const VarSlot& slot(std::size_t var, OutputType want, std::size_t t, std::size_t j0,
                       std::size_t nrows) const;
+  void check_rows(std::size_t var, std::size_t t, std::size_t j0, std::size_t nrows) const;
+
+  // direct path
+  [[nodiscard]] std::size_t elem_size(std::size_t var) const {
+    return vars[var].type == OutputType::float32 ? sizeof(float) : 1;
+  }
+  [[nodiscard]] std::size_t rows_in(std::size_t c) const {
+    return std::min(chunk_rows, ny - c * chunk_rows);
+  }
+  std::string start_direct();
+  void to_hdf5();
+  void to_netcdf();
+  void stage_rows(std::size_t var, std::size_t t, std::size_t j0, std::size_t nrows,
+                  const unsigned char* values);
+  Stage& stage_for(const StageKey& key);
+  void flush(bool partial);
+  void encode(std::size_t var, std::size_t t, std::size_t j0, std::size_t nrows,
+              const unsigned char* values, EncodedRows& out) const;
+  void store(const EncodedRows& rows);
 };
 
 void Writer::Impl::check_folder_and_target() {
@@ -361,6 +436,298 @@ const VarSlot& Writer::Impl::slot(std::size_t var, OutputType want, std::size_t 
   return s;
 }
 
+void Writer::Impl::check_rows(std::size_t var, std::size_t t, std::size_t j0,
+                              std::size_t nrows) const {
+  if (var >= vars.size())
+    fail("", "no output variable with index " + std::to_string(var));
+  const VarSlot& s = vars[var];
+  if (t >= nt)
+    fail(s.name, "time step " + std::to_string(t) + " outside 0.." + std::to_string(nt - 1));
+  if (j0 > ny || nrows > ny - j0)
+    fail(s.name, "rows " + std::to_string(j0) + "+" + std::to_string(nrows) + " outside 0.." +
+                     std::to_string(ny - 1));
+}
+
+// ---- direct path ---------------------------------------------------------------------
+
+std::string Writer::Impl::start_direct() {
+  // netCDF-C has defined everything and written the coordinates; close it
+  // so that its copy of the metadata is gone before HDF5 changes the file
+  // (CHUNK_IO.md pitfall 6).
+  const int status = nc_close(ncid);
+  nc_open_ = false;
+  if (status != NC_NOERR) {
+    open = false;
+    fail("", std::string(nc_strerror(status)) + " (closing the defined file)");
+  }
+  std::string why;
+  try {
+    h5 = std::make_unique<chunkio::H5File>(tmp_path, true);
+    const std::size_t rank = has_time ? 3 : 2;
+    for (std::size_t v = 0; v < vars.size() && why.empty(); ++v) {
+      h5vars.emplace_back(*h5, vars[v].name);
+      chunkio::ChunkFormat f = h5vars.back().format();
+      const auto want = vars[v].type == OutputType::float32 ? chunkio::ElementType::f32
+                                                            : chunkio::ElementType::i8;
+      // The chunk shape is read from the file, never assumed (pitfall 3).
+      if (!h5vars.back().supported(&why)) break;
+      if (f.dims.size() != rank || f.type != want || f.chunk[rank - 2] != chunk_rows ||
+          (has_time && f.chunk[0] != 1) || f.dims[rank - 2] != ny || f.dims[rank - 1] != nx) {
+        why = "variable " + vars[v].name + ": unexpected layout in the file";
+        break;
+      }
+      // The unlimited dimension gets its final length before any chunk is
+      // written (pitfall 1); the time coordinate already has nt values (pitfall 2).
+      if (has_time && f.dims[0] != nt) {
+        std::vector<std::size_t> dims = f.dims;
+        dims[0] = nt;
+        h5vars.back().set_extent(dims);
+        f = h5vars.back().format();
+      }
+      formats.push_back(f);
+    }
+  } catch (const std::exception& e) {
+    why = e.what();
+  }
+  if (why.empty()) {
+    direct = true;
+    writeback_fd = ::open(tmp_path.c_str(), O_RDONLY | O_CLOEXEC);
+    return why;
+  }
+  // Fall back to netCDF-C for the whole file.
+  h5vars.clear();
+  h5.reset();
+  formats.clear();
+  const int again = nc_open(tmp_path.c_str(), NC_WRITE, &ncid);
+  if (again != NC_NOERR) {
+    open = false;
+    fail("", std::string(nc_strerror(again)) + " (reopening the defined file)");
+  }
+  nc_open_ = true;
+  return why;
+}
+
+void Writer::Impl::to_hdf5() {
+  if (!nc_open_) return;
+  const int status = nc_close(ncid);
+  nc_open_ = false;
+  if (status != NC_NOERR) {
+    open = false;
+    fail("", std::string(nc_strerror(status)) + " (closing for direct chunk writes)");
+  }
+  try {
+    h5 = std::make_unique<chunkio::H5File>(tmp_path, true);
+    for (const VarSlot& v : vars) h5vars.emplace_back(*h5, v.name);
+  } catch (const std::exception& e) {
+    h5vars.clear();
+    h5.reset();
+    open = false;
+    fail("", e.what());
+  }
+}
+
+void Writer::Impl::to_netcdf() {
+  if (nc_open_) return;
+  h5vars.clear();
+  try {
+    if (h5) h5->close();
+  } catch (const std::exception& e) {
+    h5.reset();
+    open = false;
+    fail("", e.what());
+  }
+  h5.reset();
+  const int status = nc_open(tmp_path.c_str(), NC_WRITE, &ncid);
+  if (status != NC_NOERR) {
+    open = false;
+    fail("", std::string(nc_strerror(status)) + " (reopening after direct chunk writes)");
+  }
+  nc_open_ = true;
+}
+
+void Writer::Impl::encode(std::size_t var, std::size_t t, std::size_t j0, std::size_t nrows,
+                          const unsigned char* values, EncodedRows& out) const {
+  out.var = var;
+  out.t = t;
+  out.j0 = j0;
+  out.nrows = nrows;
+  const std::size_t es = elem_size(var);
+  // Buffers of a reused EncodedRows keep their capacity (no fresh memory).
+  if (!direct) {
+    out.chunks.clear();
+    out.values.assign(values, values + nrows * nx * es);
+    return;
+  }
+  out.values.clear();
+  const chunkio::ChunkFormat& f = formats[var];
+  const std::size_t rank = f.chunk.size();
+  const std::size_t cr = f.chunk[rank - 2], cc = f.chunk[rank - 1], ncol = f.chunks_along(rank - 1);
+  if (j0 % cr != 0 || ((j0 + nrows) % cr != 0 && j0 + nrows != ny))
+    fail(vars[var].name, "rows " + std::to_string(j0) + "+" + std::to_string(nrows) +
+                             " are not whole chunk rows of " + std::to_string(cr));
+  thread_local std::vector<unsigned char> buf;
+  const std::size_t nchunk_rows = (nrows + cr - 1) / cr, elements = f.chunk_elements();
+  out.chunks.resize(nchunk_rows * ncol);
+  for (std::size_t c = 0; c < nchunk_rows; ++c) {
+    const std::size_t rows = std::min(cr, nrows - c * cr);
+    for (std::size_t k = 0; k < ncol; ++k) {
+      const std::size_t i0 = k * cc, n = std::min(cc, nx - i0);
+      const unsigned char* chunk = values + c * cr * nx * es;
+      if (rows < cr || n < cc || ncol > 1) {
+        // Pack the chunk; edge chunks are stored full size, the outside
+        // padded with the fill value (pitfall 3; HDF5 does the same).
+        // (A full-width interior chunk is the rows themselves: no copy.)
+        chunkio::resize_huge(buf, f.chunk_bytes());
+        if (rows < cr || n < cc)
+          for (std::size_t e = 0; e < elements; ++e) std::memcpy(buf.data() + e * es, f.fill.data(), es);
+        for (std::size_t r = 0; r < rows; ++r)
+          std::memcpy(buf.data() + r * cc * es, values + ((c * cr + r) * nx + i0) * es, n * es);
+        chunk = buf.data();
+      }
+      try {
+        chunkio::encode_chunk(f, codec, chunk, out.chunks[c * ncol + k]);
+      } catch (const std::exception& e) {
+        fail(vars[var].name, e.what());
+      }
+    }
+  }
+}
+
+void Writer::Impl::store(const EncodedRows& rows) {
+  const VarSlot& s = vars[rows.var];
+  const std::string what = "rows " + std::to_string(rows.j0) + "+" + std::to_string(rows.nrows) +
+                           " of time step " + std::to_string(rows.t);
+  if (rows.nrows == 0) return;
+  if (!direct) {
+    const std::size_t start[3] = {rows.t, rows.j0, 0}, count[3] = {1, rows.nrows, nx};
+    const int off = has_time ? 0 : 1;
+    if (rows.values.size() != rows.nrows * nx * elem_size(rows.var))
+      fail(s.name, "encoded " + what + " have the wrong size");
+    const int status =
+        s.type == OutputType::float32
+            ? nc_put_vara_float(ncid, s.varid, start + off, count + off,
+                                reinterpret_cast<const float*>(rows.values.data()))
+            : nc_put_vara_schar(ncid, s.varid, start + off, count + off,
+                                reinterpret_cast<const signed char*>(rows.values.data()));
+    check(status, s.name, "writing " + what);
+    return;
+  }
+  to_hdf5();
+  const chunkio::ChunkFormat& f = formats[rows.var];
+  const std::size_t rank = f.chunk.size();
+  const std::size_t cr = f.chunk[rank - 2], cc = f.chunk[rank - 1], ncol = f.chunks_along(rank - 1);
+  if (rows.chunks.size() != ((rows.nrows + cr - 1) / cr) * ncol)
+    fail(s.name, "encoded " + what + " have the wrong number of chunks");
+  std::vector<std::size_t> offset(rank, 0);
+  if (has_time) offset[0] = rows.t;
+  for (std::size_t idx = 0; idx < rows.chunks.size(); ++idx) {
+    const std::size_t c = rows.j0 / cr + idx / ncol;
+    offset[rank - 2] = c * cr;
+    offset[rank - 1] = (idx % ncol) * cc;
+    try {
+      h5vars[rows.var].write_chunk(offset, rows.chunks[idx].data(), rows.chunks[idx].size());
+    } catch (const std::exception& e) {
+      fail(s.name, std::string(e.what()) + " (writing " + what + ")");
+    }
+    stored.insert({rows.var, rows.t, c});
+    unsynced += rows.chunks[idx].size();
+  }
+  if (unsynced >= (std::size_t{8} << 20)) start_writeback();
+}
+
+Stage& Writer::Impl::stage_for(const StageKey& key) {
+  auto it = stages.find(key);
+  if (it != stages.end()) return it->second;
+  const std::size_t var = key[0], c = key[2], es = elem_size(var), rows = rows_in(c);
+  const chunkio::ChunkFormat& f = formats[var];
+  Stage st;
+  st.values.resize(rows * nx * es);
+  for (std::size_t e = 0; e < rows * nx; ++e) std::memcpy(st.values.data() + e * es, f.fill.data(), es);
+  st.filled.assign(rows, 0);
+  st.missing = rows;
+  if (stored.count(key) > 0) {
+    // Rows of a chunk row already in the file: read it back, so that the
+    // rewrite keeps the rows not given again (rare; the old chunk's space is
+    // not reused by HDF5).
+    to_hdf5();
+    const std::size_t rank = f.chunk.size();
+    const std::size_t cr = f.chunk[rank - 2], cc = f.chunk[rank - 1], ncol = f.chunks_along(rank - 1);
+    std::vector<std::size_t> offset(rank, 0);
+    if (has_time) offset[0] = key[1];
+    offset[rank - 2] = c * cr;
+    std::vector<unsigned char> bytes, chunk(f.chunk_bytes());
+    for (std::size_t k = 0; k < ncol; ++k) {
+      offset[rank - 1] = k * cc;
+      unsigned mask = 0;
+      try {
+        if (!h5vars[var].read_chunk(offset, bytes, mask)) continue;
+        chunkio::decode_chunk(f, bytes.data(), bytes.size(), mask, chunk.data());
+      } catch (const std::exception& e) {
+        fail(vars[var].name, std::string(e.what()) + " (reading back a chunk to rewrite it)");
+      }
+      const std::size_t i0 = k * cc, n = std::min(cc, nx - i0);
+      for (std::size_t r = 0; r < rows; ++r)
+        std::memcpy(st.values.data() + (r * nx + i0) * es, chunk.data() + r * cc * es, n * es);
+    }
+    std::fill(st.filled.begin(), st.filled.end(), 1);
+    st.missing = 0;
+  }
+  return stages.emplace(key, std::move(st)).first->second;
+}
+
+void Writer::Impl::stage_rows(std::size_t var, std::size_t t, std::size_t j0, std::size_t nrows,
+                              const unsigned char* values) {
+  const std::size_t es = elem_size(var);
+  std::size_t queued_bytes = 0;
+  for (std::size_t j = j0; j < j0 + nrows; ++j) {
+    const StageKey key{var, t, j / chunk_rows};
+    Stage& st = stage_for(key);
+    const std::size_t r = j % chunk_rows;
+    std::memcpy(st.values.data() + r * nx * es, values + (j - j0) * nx * es, nx * es);
+    if (!st.filled[r]) {
+      st.filled[r] = 1;
+      --st.missing;
+    }
+    if (st.missing == 0 && !st.queued) {
+      st.queued = true;
+      complete.push_back(key);
+    }
+  }
+  for (const StageKey& k : complete) queued_bytes += stages.at(k).values.size();
+  const auto threads = static_cast<std::size_t>(std::max(1, omp_get_max_threads()));
+  if (queued_bytes >= flush_bytes || complete.size() >= 4 * threads) flush(false);
+}
+
+void Writer::Impl::flush(bool partial) {
+  std::vector<StageKey> keys = complete;
+  if (partial)
+    for (const auto& [key, st] : stages)
+      if (!st.queued) keys.push_back(key);
+  if (keys.empty()) return;
+  // Pack, shuffle and compress on every thread; no library call in here.
+  std::vector<EncodedRows> encoded(keys.size());
+  std::exception_ptr error;
+  const auto n = static_cast<long>(keys.size());
+#pragma omp parallel for schedule(dynamic, 1) if (n > 1)
+  for (long k = 0; k < n; ++k) {
+    try {
+      const StageKey& key = keys[static_cast<std::size_t>(k)];
+      encode(key[0], key[1], key[2] * chunk_rows, rows_in(key[2]), stages.at(key).values.data(),
+             encoded[static_cast<std::size_t>(k)]);
+    } catch (...) {
+#pragma omp critical(seatilt_writer_error)
+      if (!error) error = std::current_exception();
+    }
+  }
+  if (error) std::rethrow_exception(error);
+  // Store in a fixed order on this thread.
+  for (std::size_t k = 0; k < keys.size(); ++k) {
+    store(encoded[k]);
+    stages.erase(keys[k]);
+  }
+  complete.clear();
+}
+
 Writer::Writer(const std::string& path, const HeightInfo& layout,
                std::vector<OutputVariable> variables, const WriterSettings& settings) {
   if (settings.deflate < 0 || settings.deflate > 9)
@@ -425,6 +792,18 @@ Writer::Writer(const std::string& path, const HeightInfo& layout,
   if (w.has_time) put_coordinate(time_id, *layout.time);
   put_coordinate(lat_id, layout.lat);
   put_coordinate(lon_id, layout.lon);
+
+  w.codec = settings.codec;
+  if (settings.chunk_writes == ChunkWrites::netcdf) {
+    w.write_path = "netCDF-C (direct chunk writes switched off)";
+  } else if (settings.significant_digits > 0) {
+    w.write_path = "netCDF-C (significant digits: netCDF-C quantises)";
+  } else {
+    const std::string why = w.start_direct();
+    w.write_path = why.empty() ? std::string("direct chunk writes (") +
+                                     (w.codec == chunkio::Codec::zlib ? "zlib" : "libdeflate") + ")"
+                               : "netCDF-C (" + why + ")";
+  }
 }
 
 Writer::~Writer() = default;
@@ -449,9 +828,10 @@ void Writer::write_rows(std::size_t var, std::size_t t, std::size_t j0, const Fi
   // Non-finite values and values beyond the float range become _FillValue
   // (checked before the cast: converting an out-of-range double is undefined).
   w.fbuf.resize(rows.data.size());
-  for (std::size_t k = 0; k < rows.data.size(); ++k) {
-    const double v = rows.data[k];
-    w.fbuf[k] = std::fabs(v) <= static_cast<double>(FLT_MAX) ? static_cast<float>(v) : fill_float;
+  for (std::size_t k = 0; k < rows.data.size(); ++k) w.fbuf[k] = output_float(rows.data[k]);
+  if (w.direct) {
+    w.stage_rows(var, t, j0, rows.ny, reinterpret_cast<const unsigned char*>(w.fbuf.data()));
+    return;
   }
   const std::size_t start[3] = {t, j0, 0}, count[3] = {1, rows.ny, w.nx};
   const int off = w.has_time ? 0 : 1;
@@ -468,6 +848,10 @@ void Writer::write_flags(std::size_t var, std::size_t t, std::size_t j0, std::si
   if (nrows == 0) return;
   if (flags == nullptr) w.fail(s.name, "no flag data");
   // Stored bit for bit: NC_BYTE is signed, so 128..255 read back as -128..-1.
+  if (w.direct) {
+    w.stage_rows(var, t, j0, nrows, flags);
+    return;
+  }
   const std::size_t start[3] = {t, j0, 0}, count[3] = {1, nrows, w.nx};
   const int off = w.has_time ? 0 : 1;
   w.check(nc_put_vara_schar(w.ncid, s.varid, start + off, count + off,
@@ -477,11 +861,38 @@ void Writer::write_flags(std::size_t var, std::size_t t, std::size_t j0, std::si
               " of time step " + std::to_string(t));
 }
 
+void Writer::encode_rows(std::size_t var, std::size_t t, std::size_t j0, std::size_t nrows,
+                         const void* values, EncodedRows& out) const {
+  if (!impl_) throw OutputError("writer was moved from");
+  const Impl& w = *impl_;
+  w.check_rows(var, t, j0, nrows);
+  if (nrows > 0 && values == nullptr) w.fail(w.vars[var].name, "no data");
+  w.encode(var, t, j0, nrows, static_cast<const unsigned char*>(values), out);
+}
+
+void Writer::store(const EncodedRows& rows) {
+  if (!impl_) throw OutputError("writer was moved from");
+  Impl& w = *impl_;
+  if (!w.open) w.fail("", w.committed ? "already committed" : "file is closed after an error");
+  w.check_rows(rows.var, rows.t, rows.j0, rows.nrows);
+  w.store(rows);
+}
+
+const std::string& Writer::write_path() const {
+  static const std::string none;
+  return impl_ ? impl_->write_path : none;
+}
+
 void Writer::set_global_text(const std::string& name, const std::string& value) {
   if (!impl_) throw OutputError("writer was moved from");
   Impl& w = *impl_;
   if (!w.open) w.fail("", w.committed ? "already committed" : "file is closed after an error");
   if (name.empty() || reserved_attribute(name)) w.fail("", "global attribute name '" + name + "' not allowed");
+  if (w.direct) {
+    w.flush(false);
+    w.start_writeback();
+    w.to_netcdf();
+  }
   // netCDF-4 (not classic model) re-enters define mode by itself for attributes.
   w.check(nc_put_att_text(w.ncid, NC_GLOBAL, name.c_str(), value.size(), value.c_str()), "",
           "writing global attribute " + name);
@@ -492,12 +903,39 @@ void Writer::commit() {
   Impl& w = *impl_;
   if (w.committed) w.fail("", "already committed");
   if (!w.open) w.fail("", "file is closed after an error");
-  w.open = false;
-  const int status = nc_close(w.ncid);
-  if (status != NC_NOERR) {
-    w.discard();
-    w.fail("", std::string(nc_strerror(status)) + " (closing)");
+  if (w.direct) {
+    try {
+      w.flush(true);  // the rest of partly written chunk rows reads back as fill
+    } catch (...) {
+      w.discard();
+      throw;
+    }
+    w.start_writeback();
+    if (w.writeback_fd >= 0) {
+      ::close(w.writeback_fd);
+      w.writeback_fd = -1;
+    }
   }
+  w.open = false;
+  if (!w.nc_open_) {
+    w.h5vars.clear();
+    try {
+      w.h5->close();
+    } catch (const std::exception& e) {
+      w.h5.reset();
+      w.discard();
+      w.fail("", std::string(e.what()) + " (closing)");
+    }
+    w.h5.reset();
+  } else {
+    const int status = nc_close(w.ncid);
+    if (status != NC_NOERR) {
+      w.nc_open_ = false;
+      w.discard();
+      w.fail("", std::string(nc_strerror(status)) + " (closing)");
+    }
+  }
+  w.nc_open_ = false;
   if (const int err = sync_path(w.tmp_path, false); err != 0) {
     w.discard();
     w.fail("", "flushing to disk: " + errno_text(err));

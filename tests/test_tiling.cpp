@@ -36,7 +36,9 @@ struct TempDir {
 
 // Writes a (time, lat, lon) float height file with two eddies, a land block
 // and descending latitude.
-void make_input(const std::string& path, std::size_t ny, std::size_t nx, std::size_t nt) {
+// CHUNKED: deflate + shuffle in (1, 16, nx) chunks (read raw), else contiguous.
+void make_input(const std::string& path, std::size_t ny, std::size_t nx, std::size_t nt,
+                bool chunked = false) {
   int nc = 0, dt = 0, dy = 0, dx = 0, vt = 0, vy = 0, vx = 0, vh = 0;
   nc_ok(nc_create(path.c_str(), NC_NETCDF4 | NC_CLOBBER, &nc));
   nc_ok(nc_def_dim(nc, "time", nt, &dt));
@@ -55,6 +57,11 @@ void make_input(const std::string& path, std::size_t ny, std::size_t nx, std::si
   nc_ok(nc_put_att_text(nc, vh, "units", 1, "m"));
   const float fill = -999.f;
   nc_ok(nc_put_att_float(nc, vh, "_FillValue", NC_FLOAT, 1, &fill));
+  if (chunked) {
+    const std::size_t chunk[3] = {1, 16, nx};
+    nc_ok(nc_def_var_chunking(nc, vh, NC_CHUNKED, chunk));
+    nc_ok(nc_def_var_deflate(nc, vh, 1, 1, 2));
+  }
   nc_ok(nc_enddef(nc));
   std::vector<double> t(nt), lat(ny), lon(nx);
   for (std::size_t k = 0; k < nt; ++k) t[k] = 27000.0 + static_cast<double>(k);
@@ -111,11 +118,11 @@ TEST_CASE("plan_bands covers every row once") {
 }
 
 TEST_CASE("band height follows the memory budget and alignment") {
-  // 8640 columns (1/24 deg): 73 bytes per cell and row -> 256 MiB / (8640*73) ~ 425 rows
+  // 8640 columns (1/24 deg), halo 6, 256 MiB, memory model of tiling.hpp:
+  // 2 x 8640 x (86 R + 50 x 6) <= 268435456 -> R <= 177.1 -> 160 (multiple of 32)
   const std::size_t r = band_rows_for_budget(8640, 4320, 6, 256u << 20, 32);
   CHECK(r % 32 == 0);
-  CHECK(r >= 352);
-  CHECK(r <= 448);
+  CHECK(r == 160);
   CHECK(band_rows_for_budget(100, 20, 3, 1u << 30, 8) == 20);  // whole grid fits
   CHECK(band_rows_for_budget(1000000, 100, 3, 1u << 20, 4) == 4);  // at least one aligned band
 }
@@ -155,6 +162,68 @@ TEST_CASE("run_currents: identical output for any band height and thread count")
     }
   }
   omp_set_num_threads(threads_before);
+}
+
+TEST_CASE("run_currents: raw chunk reads + direct chunk writes equal the netCDF-C path") {
+  TempDir tmp;
+  const std::string in = (tmp.path / "eddies.nc").string();
+  make_input(in, 120, 90, 3, true);
+  const char* names[] = {"u", "v", "speed", "vorticity", "strain_normal", "strain_shear",
+                         "strain", "okubo_weiss", "quality"};
+  std::vector<std::vector<float>> ref;
+  int run = 0;
+  for (bool fast : {false, true}) {
+    for (int threads : {1, 3}) {
+      for (std::size_t rows : {0, 13}) {
+        omp_set_num_threads(threads);
+        CurrentsJob job;
+        job.input = in;
+        job.output = (tmp.path / ("p" + std::to_string(run++) + ".nc")).string();
+        job.fields = parse_field_list("all");
+        job.band_rows = rows;
+        job.reader.raw_chunks = fast;
+        job.writer.chunk_writes = fast ? ChunkWrites::automatic : ChunkWrites::netcdf;
+        run_currents(job);
+        std::vector<std::vector<float>> now;
+        for (const char* n : names) now.push_back(read_var(job.output, n));
+        if (ref.empty()) {
+          ref = now;
+          continue;
+        }
+        for (std::size_t k = 0; k < ref.size(); ++k) {
+          CAPTURE(names[k]);
+          CAPTURE(fast);
+          CAPTURE(threads);
+          CAPTURE(rows);
+          CHECK(std::memcmp(ref[k].data(), now[k].data(), ref[k].size() * sizeof(float)) == 0);
+        }
+      }
+    }
+  }
+}
+
+namespace {
+int bands_seen = 0;
+void stop_after_two_bands() {
+  if (++bands_seen > 2) throw OutputError("stopped");
+}
+}  // namespace
+
+TEST_CASE("run_currents: a run abandoned between bands leaves nothing at the output path") {
+  TempDir tmp;
+  const std::string in = (tmp.path / "eddies.nc").string();
+  make_input(in, 60, 40, 2);
+  CurrentsJob job;
+  job.input = in;
+  job.output = (tmp.path / "out.nc").string();
+  job.fields = parse_field_list("all");
+  job.band_rows = 10;
+  job.between_bands = &stop_after_two_bands;
+  CHECK_THROWS_AS(run_currents(job), OutputError);
+  CHECK(bands_seen == 3);
+  std::size_t files = 0;
+  for (const auto& e : fs::directory_iterator(tmp.path)) { (void)e; ++files; }
+  CHECK(files == 1);  // only the input
 }
 
 TEST_CASE("run_currents: an all-fill step is an input error and leaves no output") {

@@ -2,7 +2,9 @@
 //
 // Owns: speed, relative vorticity, normal and shear strain, total strain and
 // the Okubo–Weiss parameter on the sphere or ellipsoid, with their metric
-// terms. Does not own u, v (kernel.hpp) or I/O.
+// terms, on latitude-longitude grids (KinematicsKernel) and on projected or
+// curvilinear grids (CurvilinearKinematicsKernel). Does not own u, v
+// (kernel.hpp) or I/O.
 //
 // Method (orthogonal curvilinear coordinates on the ellipsoid; u east, v
 // north; N replaces R in lambda-derivatives and tan(phi) terms, M in phi-
@@ -64,6 +66,42 @@ private:
   const Grid& grid_;
   Differentiator diff_;
   std::vector<double> inv_m_, inv_ncos_, tan_over_n_;
+};
+
+/// Computes Kinematics on a projected or curvilinear grid (grid.hpp).
+///
+/// Method: the same formulas (REFERENCES.md §6) in directional form,
+///   zeta = dv/de - du/dn + u tan(phi)/N,  sn = du/de - dv/dn - v tan(phi)/N,
+///   ss = dv/de + du/dn + u tan(phi)/N,
+/// evaluated through the earth-centred components of the velocity,
+/// V = u e_hat + v n_hat (smooth across a pole, where u and v are not):
+///   zeta = n_hat . dV/de - e_hat . dV/dn,  sn = e_hat . dV/de - n_hat . dV/dn,
+///   ss = n_hat . dV/de + e_hat . dV/dn,
+/// with the east/north derivatives of each component from
+/// CurvilinearDifferentiator::gradient. Expanding dV/de with d(e_hat)/de =
+/// (tan(phi)/N) n_hat - (1/N) r_hat, d(n_hat)/de = -(tan(phi)/N) e_hat and
+/// d(e_hat)/dn = 0, d(n_hat)/dn normal to the surface gives exactly the
+/// metric terms above (ellipsoid: d(N cos phi)/dphi = -M sin phi).
+class CurvilinearKinematicsKernel {
+public:
+  /// ORDER 2, 4, 6 and COAST as for the velocities; the figure for the metric
+  /// terms is GRID's (grid.hpp CurvilinearGrid::ellipsoid). Keeps a reference to GRID.
+  CurvilinearKinematicsKernel(const CurvilinearGrid& grid, int order, CoastMethod coast);
+
+  /// Rows of u, v needed above and below the output rows.
+  [[nodiscard]] std::size_t halo_rows() const;
+
+  /// As KinematicsKernel::compute: diagnostics for global rows [j0, j0 + n)
+  /// from U, V (m s-1, east and north, NaN where masked) holding global rows
+  /// [b0, b0 + u.ny) that cover the halo within the grid (std::logic_error
+  /// otherwise); quality::one_sided OR-ed into FLAGS (n * nx) where a
+  /// shortened stencil was needed; NaN diagnostics where no stencil fits.
+  void compute(const Field& u, const Field& v, std::size_t b0, std::size_t j0, std::size_t n,
+               Kinematics& out, std::vector<std::uint8_t>& flags) const;
+
+private:
+  const CurvilinearGrid& grid_;
+  CurvilinearDifferentiator diff_;
 };
 
 }  // namespace seatilt

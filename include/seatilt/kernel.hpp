@@ -3,8 +3,10 @@
 // Owns: the stencil ladder (centred differences of order 2, 4, 6, shortened
 // and one-sided fallbacks next to missing cells and domain edges), the
 // geostrophic velocity with f-plane, beta-plane and blended equatorial
-// treatments, and the per-cell quality flag. Does not own I/O, row-band
-// scheduling (tiling.hpp) or the kinematic diagnostics (diagnostics.hpp).
+// treatments, and the per-cell quality flag, on latitude-longitude grids
+// (GeostrophicKernel) and on projected or curvilinear grids
+// (CurvilinearGeostrophicKernel). Does not own I/O, row-band scheduling
+// (tiling.hpp) or the kinematic diagnostics (diagnostics.hpp).
 //
 // Method
 //  Away from the equator (geostrophic balance on the rotating ellipsoid,
@@ -158,6 +160,82 @@ private:
   CurrentsOptions options_;
   Differentiator diff_;
   std::vector<Row> rows_;
+};
+
+// ---- projected and curvilinear grids ------------------------------------------
+//
+// Method (CurvilinearGrid, grid.hpp): derivatives along grid rows and columns
+// by the same stencil ladder (divided by the column/row coordinate's own
+// stencil sum: x, y in metres for a projection, the index otherwise), then
+// the node's metric B gives the east and north derivatives (per metre):
+//   d(eta)/de = B.e_c d(eta)/dc + B.e_r d(eta)/dr,  d(eta)/dn likewise.
+// Geostrophic balance in true east/north components ([4] ch. 10):
+//   u = -(g / f) d(eta)/dn,  v = (g / f) d(eta)/de,  f = 2 Omega sin(phi_node)   (m s-1)
+// Beta plane [2] in directional form: u_b = -(g / beta) d/dn (d(eta)/dn),
+// v_b = (g / beta) d/dn (d(eta)/de), beta = 2 Omega cos(phi) / M; the outer
+// derivative is taken of the inner one at the neighbouring nodes (nested
+// first derivatives, reach 2h). Blend [3] and quality bits as on
+// latitude-longitude grids, decided per node from its latitude. A node at a
+// pole gets quality::masked_pole. The grid's edges are coasts (no seam).
+
+/// East/north gradient of a field at a node (per metre), and how it was obtained.
+struct Gradient {
+  double e = 0.0, n = 0.0;
+  Derivative::Status status = Derivative::failed;  ///< the worse of the two grid-line derivatives
+};
+
+/// First derivatives along the grid lines of a CurvilinearGrid and the
+/// east/north gradient, with the stencil ladder. A band holds global rows
+/// [b0, b0 + band.ny); rows outside the band or the grid, columns outside
+/// the grid, and NaN cells are missing.
+class CurvilinearDifferentiator {
+public:
+  /// ORDER 2, 4 or 6; FALLBACK false refuses any stencil but the full centred one.
+  CurvilinearDifferentiator(const CurvilinearGrid& grid, int order, bool fallback);
+  /// d f / d c along row j at column i (per unit of the column coordinate).
+  [[nodiscard]] Derivative d_col(const Field& band, std::size_t b0, std::size_t j, std::size_t i) const;
+  /// d f / d r along column i at row j (per unit of the row coordinate).
+  [[nodiscard]] Derivative d_row(const Field& band, std::size_t b0, std::size_t j, std::size_t i) const;
+  /// d f / de and d f / dn (per metre) at node (j, i); failed at a pole node.
+  [[nodiscard]] Gradient gradient(const Field& band, std::size_t b0, std::size_t j, std::size_t i) const;
+  /// Half-width of the widest stencil in rows (>= 2: one-sided needs two neighbours).
+  [[nodiscard]] int reach() const { return hw_ < 2 ? 2 : hw_; }
+  [[nodiscard]] const CurvilinearGrid& grid() const { return grid_; }
+
+private:
+  const CurvilinearGrid& grid_;
+  int hw_;
+  bool fallback_;
+};
+
+/// Geostrophic surface velocity (true east, north) on a projected or
+/// curvilinear grid; same options, flags and band contract as GeostrophicKernel.
+class CurvilinearGeostrophicKernel {
+public:
+  /// Throws UsageError for invalid options. Keeps a reference to GRID.
+  CurvilinearGeostrophicKernel(const CurvilinearGrid& grid, const CurrentsOptions& options);
+
+  /// Rows of height needed above and below the output rows: the stencil
+  /// reach, doubled when a beta-plane or blended node exists (nested derivatives).
+  [[nodiscard]] std::size_t halo_rows() const;
+
+  /// As GeostrophicKernel::compute: u, v (m s-1, east and north, NaN where
+  /// masked) and FLAGS for global rows [j0, j0 + n) from heights ETA (m, NaN
+  /// missing) holding global rows [e0, e0 + eta.ny) that cover the halo within
+  /// the grid (std::logic_error otherwise). Rows in parallel with OpenMP; the
+  /// result does not depend on the thread count or the band layout.
+  void compute(const Field& eta, std::size_t e0, std::size_t j0, std::size_t n, Field& u,
+               Field& v, std::vector<std::uint8_t>& flags) const;
+
+private:
+  enum Mode : std::uint8_t { f_plane, beta_plane, blend, masked_equator, pole };
+  void compute_row(const Field& eta, std::size_t e0, std::size_t j, double* u, double* v,
+                   std::uint8_t* flags) const;
+  [[nodiscard]] Mode mode_of(std::size_t j, std::size_t i) const;
+  const CurvilinearGrid& grid_;
+  CurrentsOptions options_;
+  CurvilinearDifferentiator diff_;
+  bool nested_ = false;  // some node uses the beta-plane form
 };
 
 }  // namespace seatilt

@@ -119,6 +119,37 @@ struct HeightInfo {
 struct ReaderOptions {
   std::string variable;  ///< --variable ("" = detect)
   std::string units;     ///< --units ("" = from the file)
+  /// Read netCDF-4 chunks raw (H5Dread_chunk) and decompress them in seatilt,
+  /// in parallel, where the layout allows (chunked; filters [shuffle]
+  /// [deflate] or none; integer or IEEE float storage); false = always
+  /// nc_get_vara. Values are identical either way (tested).
+  bool raw_chunks = true;
+};
+
+/// Rows of one time step fetched from the file by Reader::fetch_rows and not
+/// yet decoded: stored chunks (raw path) or values (nc_get_vara path).
+/// Move-only; holds no netCDF or HDF5 handle.
+class FetchedRows {
+public:
+  FetchedRows();
+  ~FetchedRows();
+  FetchedRows(FetchedRows&&) noexcept;
+  FetchedRows& operator=(FetchedRows&&) noexcept;
+  FetchedRows(const FetchedRows&) = delete;
+  FetchedRows& operator=(const FetchedRows&) = delete;
+
+  /// Independent decoding tasks (one per input chunk to decompress; 0 on the
+  /// nc_get_vara path). Run each once, on any threads, concurrently if
+  /// wished, before Reader::unpack_rows. Throws InputError for corrupt data.
+  [[nodiscard]] std::size_t tasks() const;
+  void run_task(std::size_t k) const;
+  [[nodiscard]] std::size_t rows() const;  ///< rows fetched
+  [[nodiscard]] std::size_t first_row() const;  ///< global index of the first row
+
+private:
+  friend class Reader;
+  struct Impl;
+  std::unique_ptr<Impl> impl_;
 };
 
 /// Reads heights from one netCDF file. Move-only; closes the file on destruction.
@@ -147,6 +178,22 @@ public:
   /// std::out_of_range when t >= nt or the rows exceed ny (a caller bug).
   /// nrows = 0 gives an empty OUT.
   void read_rows(std::size_t t, std::size_t j0, std::size_t nrows, Field& out);
+
+  /// read_rows in two halves for pipelines that keep every netCDF/HDF5 call
+  /// on one thread: fetch_rows makes the library calls (on the Reader's
+  /// thread); FetchedRows::run_task and unpack_rows make none and may run on
+  /// other threads while the Reader fetches the next rows. Rows must be
+  /// decoded (all tasks run) in the order they were fetched, since chunks
+  /// shared by overlapping fetches are decoded once, by the first.
+  /// fetch_rows throws like read_rows.
+  void fetch_rows(std::size_t t, std::size_t j0, std::size_t nrows, FetchedRows& out);
+  /// Writes fetched rows [r0, r1) (0 <= r0 <= r1 <= in.rows()) into the same
+  /// rows of OUT, which must be in.rows() x nx: metres, NaN where missing,
+  /// exactly as read_rows. Thread-safe for disjoint row ranges.
+  void unpack_rows(const FetchedRows& in, std::size_t r0, std::size_t r1, Field& out) const;
+
+  /// How heights are read: "raw chunks (shuffle+deflate)" or "netCDF-C (<reason>)".
+  [[nodiscard]] const std::string& read_path() const;
 
   /// Returns the calendar date of time step t; throws InputError for an
   /// unknown calendar or undecodable units. Without time, throws InputError;

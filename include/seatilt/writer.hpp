@@ -17,15 +17,19 @@
 //  [2] netCDF-C 4.9 API: nc_def_var_chunking, nc_def_var_deflate,
 //      nc_def_var_quantize (NC_QUANTIZE_GRANULARBR).
 //
-// Thread safety: netCDF-C is not thread-safe; call a Writer from one thread.
+// Thread safety: netCDF-C is not thread-safe; call a Writer from one thread,
+// except encode_rows (no library calls), which any thread may call.
 #pragma once
 
+#include <cfloat>
+#include <cmath>
 #include <cstddef>
 #include <cstdint>
 #include <memory>
 #include <string>
 #include <vector>
 
+#include "seatilt/chunkio.hpp"
 #include "seatilt/grid.hpp"
 #include "seatilt/reader.hpp"
 
@@ -48,12 +52,40 @@ struct OutputVariable {
   std::vector<Attribute> attrs;  ///< standard_name, long_name, units, flag_masks, ...
 };
 
+/// How chunks of the output variables reach the file.
+enum class ChunkWrites {
+  /// Compressed by seatilt on every OpenMP thread and stored with HDF5's
+  /// direct chunk write on a file netCDF-C defined (../shared/CHUNK_IO.md),
+  /// whenever the settings allow (not with significant_digits > 0, whose
+  /// quantisation netCDF-C applies); netCDF-C otherwise.
+  automatic,
+  netcdf,  ///< always nc_put_vara (netCDF-C compresses on the calling thread)
+};
+
 /// How to write.
 struct WriterSettings {
   int deflate = 1;             ///< 0..9 (0 = no compression), with shuffle when > 0
   int significant_digits = 0;  ///< 0 = off; 1..7 = Granular BitRound, float32 variables only
   bool force = false;          ///< overwrite an existing output
   std::vector<Attribute> global_attrs;  ///< written in this order after the coordinates
+  ChunkWrites chunk_writes = ChunkWrites::automatic;
+  chunkio::Codec codec = chunkio::Codec::libdeflate;  ///< deflate library on the direct path
+};
+
+/// The float32 stored for a value V of a float variable: V rounded to the
+/// nearest float, or the _FillValue NC_FILL_FLOAT (9.9692099683868690e+36)
+/// when V is not finite or |V| > FLT_MAX (IEEE 754 binary32).
+inline float output_float(double v) {
+  return std::fabs(v) <= static_cast<double>(FLT_MAX) ? static_cast<float>(v)
+                                                       : 9.9692099683868690e+36f;
+}
+
+/// Rows of one variable and time step prepared by Writer::encode_rows for
+/// Writer::store: compressed chunks (direct path) or plain values.
+struct EncodedRows {
+  std::size_t var = 0, t = 0, j0 = 0, nrows = 0;
+  std::vector<std::vector<unsigned char>> chunks;  ///< direct path: stored bytes, chunk row-major
+  std::vector<unsigned char> values;               ///< netCDF path: nrows x nx values
 };
 
 // File layout written by Writer (netCDF-4, not the classic model):
@@ -75,6 +107,16 @@ struct WriterSettings {
 //    (algorithm = "granular_bitround", implementation = "libnetcdf version
 //    X.Y.Z") [1] 8.4;
 //  - the temporary file ".<basename>.tmp-<pid>-<random>" in PATH's folder.
+// Direct path (ChunkWrites::automatic, significant_digits 0): netCDF-C
+// defines the file and writes the coordinates, closes it; HDF5 reopens it,
+// reads each variable's chunk shape, filters, byte order and fill value back
+// from the file, sets the final extent of the unlimited dimension, and
+// chunks are padded with the fill value, shuffled and deflated by seatilt on
+// all OpenMP threads and stored once each with H5Dwrite_chunk. The file is
+// reopened with netCDF-C for set_global_text. Readers get the values the
+// netCDF-C path writes, bit for bit, and `ncdump -h -s` is identical (tested).
+// write_rows/write_flags keep partly written chunk rows in memory until every
+// row of them has arrived (or commit(), which pads the rest with fill).
 // Error messages: "PATH: variable V: <nc_strerror> (<action>)" for netCDF
 // failures, "PATH: <problem>" otherwise (PATH = the final path).
 
@@ -114,6 +156,24 @@ public:
   /// as -128..-1). Throws OutputError like write_rows.
   void write_flags(std::size_t var, std::size_t t, std::size_t j0, std::size_t nrows,
                    const std::uint8_t* flags);
+
+  /// Prepares rows [J0, J0 + NROWS) of variable VAR at step T for store():
+  /// VALUES holds NROWS x nx elements of the variable's type (float32 as
+  /// given by output_float, or flag bytes), row-major. On the direct path the
+  /// rows must be whole chunk rows (J0 a multiple of chunk_rows(), J0 + NROWS
+  /// a multiple of it or ny) and come out as compressed chunks. Makes no
+  /// netCDF or HDF5 call: may run on any thread, concurrently with itself and
+  /// with store(). Throws OutputError for bad indices or misaligned rows.
+  void encode_rows(std::size_t var, std::size_t t, std::size_t j0, std::size_t nrows,
+                   const void* values, EncodedRows& out) const;
+
+  /// Stores rows prepared by encode_rows (H5Dwrite_chunk, or nc_put_vara).
+  /// Call from the Writer's thread; each chunk row once. Throws OutputError.
+  void store(const EncodedRows& rows);
+
+  /// How chunks are written: "direct chunk writes (libdeflate)" or
+  /// "netCDF-C (<reason>)".
+  [[nodiscard]] const std::string& write_path() const;
 
   /// Sets (or replaces) a global text attribute before commit (e.g. a
   /// completion marker). Throws OutputError on failure.
