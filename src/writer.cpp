@@ -77,12 +77,15 @@ bool reserved_attribute(const std::string& name) {
   return names.count(name) > 0;
 }
 
-/// Coordinate attributes that describe packing or missing data: coordinate
-/// values arrive unpacked and complete, so these no longer apply.
+/// Coordinate attributes that no longer apply to the copy: packing and
+/// missing data (values arrive unpacked and complete) and `bounds`.
 bool packing_attribute(const std::string& name) {
   return name == "scale_factor" || name == "add_offset" || name == "missing_value" ||
          name == "valid_min" || name == "valid_max" || name == "valid_range" ||
-         name == "_Unsigned";
+         name == "_Unsigned" ||
+         // Bounds variables are not copied, so a pointer to one would dangle
+         // (CF 7.1 requires the named variable to exist).
+         name == "bounds";
 }
 
 /// True when V is stored exactly by nc_type TYPE.

@@ -96,7 +96,7 @@ HeightInfo make_layout(std::size_t ny, std::size_t nx, std::size_t nt, bool with
   h.lon.nc_type = NC_DOUBLE;
   for (std::size_t i = 0; i < nx; ++i) h.lon.values.push_back(-20.0 + 0.125 * static_cast<double>(i));
   h.lon.attrs = {text("standard_name", "longitude"), text("units", "degrees_east"),
-                 numbers("scale_factor", NC_DOUBLE, {1.0})};
+                 numbers("scale_factor", NC_DOUBLE, {1.0}), text("bounds", "longitude_bnds")};
   if (with_time) {
     CoordVar t;
     t.name = "time";
@@ -265,6 +265,7 @@ TEST_CASE("3-D output: dimensions, coordinates, values, fill, flags, chunking, d
   CHECK(!has_att(f.id, latid, "valid_min"));
   CHECK(!has_att(f.id, latid, "valid_max"));
   CHECK(!has_att(f.id, lonid, "scale_factor"));
+  CHECK(!has_att(f.id, lonid, "bounds"));  // its bounds variable is not copied (CF 7.1)
   CHECK(att_text(f.id, tid, "units") == "days since 1950-01-01");
   CHECK(att_text(f.id, tid, "calendar") == "standard");
 
