@@ -67,10 +67,12 @@ void run(const std::string& input, const std::string& output, const std::string&
   int ndims = 0, dims[NC_MAX_VAR_DIMS];
   ok(nc_inq_varndims(in, hvar, &ndims), "height dimensions");
   ok(nc_inq_vardimid(in, hvar, dims), "height dimensions");
-  if (ndims != 2 && ndims != 3) throw std::runtime_error("height is not (lat, lon) or (time, lat, lon)");
+  if (ndims != 2 && ndims != 3)
+    throw std::runtime_error("height is not (lat, lon) or (time, lat, lon)");
   const bool has_time = ndims == 3;
   std::size_t len[3] = {1, 0, 0};
-  for (int d = 0; d < ndims; ++d) ok(nc_inq_dimlen(in, dims[d], &len[d + (has_time ? 0 : 1)]), "dimension");
+  for (int d = 0; d < ndims; ++d)
+    ok(nc_inq_dimlen(in, dims[d], &len[d + (has_time ? 0 : 1)]), "dimension");
   const std::size_t nt = len[0], ny = len[1], nx = len[2];
   float in_fill = NC_FILL_FLOAT;
   nc_get_att_float(in, hvar, "_FillValue", &in_fill);
@@ -105,8 +107,9 @@ void run(const std::string& input, const std::string& output, const std::string&
   }
   const std::size_t chunk_rows = std::clamp<std::size_t>((262144 + nx - 1) / nx, 1, ny);
   const std::size_t chunk3[3] = {1, chunk_rows, nx};
-  const char* names[9] = {"u", "v", "speed", "vorticity", "strain_normal", "strain_shear",
-                          "strain", "okubo_weiss", "quality"};
+  const char* names[9] = {
+      "u",      "v",           "speed",  "vorticity", "strain_normal", "strain_shear",
+      "strain", "okubo_weiss", "quality"};
   int ovar[9];
   for (int k = 0; k < 9; ++k) {
     const bool flag = k == 8;
@@ -160,15 +163,19 @@ int main(int argc, char** argv) {
     const std::string arg = argv[a];
     if ((arg == "-o" || arg == "--deflate" || arg == "--variable") && a + 1 < argc) {
       const std::string value = argv[++a];
-      if (arg == "-o") outdir = value;
-      else if (arg == "--deflate") deflate = std::atoi(value.c_str());
-      else variable = value;
+      if (arg == "-o")
+        outdir = value;
+      else if (arg == "--deflate")
+        deflate = std::atoi(value.c_str());
+      else
+        variable = value;
     } else {
       inputs.push_back(arg);
     }
   }
   if (outdir.empty() || inputs.empty() || deflate < 0 || deflate > 9) {
-    std::fprintf(stderr, "usage: seatilt-io-floor [--deflate 0..9] [--variable NAME] -o OUTDIR IN.nc...\n");
+    std::fprintf(stderr,
+                 "usage: seatilt-io-floor [--deflate 0..9] [--variable NAME] -o OUTDIR IN.nc...\n");
     return 1;
   }
   for (const std::string& input : inputs) {

@@ -47,7 +47,8 @@ struct CodecState {
   }
   libdeflate_decompressor* inflater() {
     if (decompressor == nullptr) decompressor = libdeflate_alloc_decompressor();
-    if (decompressor == nullptr) throw std::runtime_error("libdeflate: cannot allocate a decompressor");
+    if (decompressor == nullptr)
+      throw std::runtime_error("libdeflate: cannot allocate a decompressor");
     return decompressor;
   }
 };
@@ -77,7 +78,8 @@ void deflate_into(Codec codec, int level, const unsigned char* in, std::size_t n
   uLongf len = compressBound(static_cast<uLong>(n));
   if (tmp.size() < len) resize_huge(tmp, len);
   const int status = compress2(tmp.data(), &len, in, static_cast<uLong>(n), level);
-  if (status != Z_OK) throw std::runtime_error(std::string("zlib: compression failed: ") + zError(status));
+  if (status != Z_OK)
+    throw std::runtime_error(std::string("zlib: compression failed: ") + zError(status));
   out.assign(tmp.data(), tmp.data() + len);
 }
 
@@ -109,16 +111,26 @@ struct Hid {
 
 hid_t native_type(ElementType t) {
   switch (t) {
-    case ElementType::i8: return H5T_NATIVE_SCHAR;
-    case ElementType::u8: return H5T_NATIVE_UCHAR;
-    case ElementType::i16: return H5T_NATIVE_SHORT;
-    case ElementType::u16: return H5T_NATIVE_USHORT;
-    case ElementType::i32: return H5T_NATIVE_INT;
-    case ElementType::u32: return H5T_NATIVE_UINT;
-    case ElementType::i64: return H5T_NATIVE_LLONG;
-    case ElementType::u64: return H5T_NATIVE_ULLONG;
-    case ElementType::f32: return H5T_NATIVE_FLOAT;
-    case ElementType::f64: return H5T_NATIVE_DOUBLE;
+    case ElementType::i8:
+      return H5T_NATIVE_SCHAR;
+    case ElementType::u8:
+      return H5T_NATIVE_UCHAR;
+    case ElementType::i16:
+      return H5T_NATIVE_SHORT;
+    case ElementType::u16:
+      return H5T_NATIVE_USHORT;
+    case ElementType::i32:
+      return H5T_NATIVE_INT;
+    case ElementType::u32:
+      return H5T_NATIVE_UINT;
+    case ElementType::i64:
+      return H5T_NATIVE_LLONG;
+    case ElementType::u64:
+      return H5T_NATIVE_ULLONG;
+    case ElementType::f32:
+      return H5T_NATIVE_FLOAT;
+    case ElementType::f64:
+      return H5T_NATIVE_DOUBLE;
   }
   return H5T_NATIVE_FLOAT;
 }
@@ -139,16 +151,36 @@ void convert_run(const unsigned char* p, std::size_t n, double* out) {
 /// Converts N elements of TYPE at P (machine order) to doubles.
 void to_double(ElementType type, const unsigned char* p, std::size_t n, double* out) {
   switch (type) {
-    case ElementType::i8: convert_run<signed char>(p, n, out); break;
-    case ElementType::u8: convert_run<unsigned char>(p, n, out); break;
-    case ElementType::i16: convert_run<std::int16_t>(p, n, out); break;
-    case ElementType::u16: convert_run<std::uint16_t>(p, n, out); break;
-    case ElementType::i32: convert_run<std::int32_t>(p, n, out); break;
-    case ElementType::u32: convert_run<std::uint32_t>(p, n, out); break;
-    case ElementType::i64: convert_run<long long>(p, n, out); break;
-    case ElementType::u64: convert_run<unsigned long long>(p, n, out); break;
-    case ElementType::f32: convert_run<float>(p, n, out); break;
-    case ElementType::f64: convert_run<double>(p, n, out); break;
+    case ElementType::i8:
+      convert_run<signed char>(p, n, out);
+      break;
+    case ElementType::u8:
+      convert_run<unsigned char>(p, n, out);
+      break;
+    case ElementType::i16:
+      convert_run<std::int16_t>(p, n, out);
+      break;
+    case ElementType::u16:
+      convert_run<std::uint16_t>(p, n, out);
+      break;
+    case ElementType::i32:
+      convert_run<std::int32_t>(p, n, out);
+      break;
+    case ElementType::u32:
+      convert_run<std::uint32_t>(p, n, out);
+      break;
+    case ElementType::i64:
+      convert_run<long long>(p, n, out);
+      break;
+    case ElementType::u64:
+      convert_run<unsigned long long>(p, n, out);
+      break;
+    case ElementType::f32:
+      convert_run<float>(p, n, out);
+      break;
+    case ElementType::f64:
+      convert_run<double>(p, n, out);
+      break;
   }
 }
 
@@ -168,10 +200,20 @@ void advise_huge(void* data, std::size_t bytes) {
 
 std::size_t element_size(ElementType type) {
   switch (type) {
-    case ElementType::i8: case ElementType::u8: return 1;
-    case ElementType::i16: case ElementType::u16: return 2;
-    case ElementType::i32: case ElementType::u32: case ElementType::f32: return 4;
-    case ElementType::i64: case ElementType::u64: case ElementType::f64: return 8;
+    case ElementType::i8:
+    case ElementType::u8:
+      return 1;
+    case ElementType::i16:
+    case ElementType::u16:
+      return 2;
+    case ElementType::i32:
+    case ElementType::u32:
+    case ElementType::f32:
+      return 4;
+    case ElementType::i64:
+    case ElementType::u64:
+    case ElementType::f64:
+      return 8;
   }
   return 1;
 }
@@ -279,7 +321,9 @@ void decode_chunk(const ChunkFormat& format, const unsigned char* data, std::siz
 
 H5File::H5File(const std::string& path, bool writable) {
   hid_t id = -1;
-  H5E_BEGIN_TRY { id = H5Fopen(path.c_str(), writable ? H5F_ACC_RDWR : H5F_ACC_RDONLY, H5P_DEFAULT); }
+  H5E_BEGIN_TRY {
+    id = H5Fopen(path.c_str(), writable ? H5F_ACC_RDWR : H5F_ACC_RDONLY, H5P_DEFAULT);
+  }
   H5E_END_TRY;
   if (id < 0)
     throw std::runtime_error(std::string("HDF5 cannot open the file ") +
@@ -322,7 +366,8 @@ H5Chunked::H5Chunked(const H5File& file, const std::string& name) : name_(name) 
   hid_t id = -1;
   H5E_BEGIN_TRY {
     // No HDF5 chunk cache: chunks are read and written whole, by us.
-    if (dapl) H5Pset_chunk_cache(dapl.id, H5D_CHUNK_CACHE_NSLOTS_DEFAULT, 0, H5D_CHUNK_CACHE_W0_DEFAULT);
+    if (dapl)
+      H5Pset_chunk_cache(dapl.id, H5D_CHUNK_CACHE_NSLOTS_DEFAULT, 0, H5D_CHUNK_CACHE_W0_DEFAULT);
     id = H5Dopen2(static_cast<hid_t>(file.id()), name.c_str(), dapl ? dapl.id : H5P_DEFAULT);
     if (id < 0)  // netCDF-C's name for a variable that shares a dimension's name
       id = H5Dopen2(static_cast<hid_t>(file.id()), ("_nc4_non_coord_" + name).c_str(),
@@ -395,7 +440,8 @@ std::string H5Chunked::describe() {
   if (!chunked_) unsupported_ = "not chunked";
   if (chunked_) {
     std::vector<hsize_t> chunk(static_cast<std::size_t>(rank));
-    if (H5Pget_chunk(dcpl.id, rank, chunk.data()) != rank) return "HDF5 cannot read the chunk shape";
+    if (H5Pget_chunk(dcpl.id, rank, chunk.data()) != rank)
+      return "HDF5 cannot read the chunk shape";
     format_.chunk.assign(chunk.begin(), chunk.end());
     for (std::size_t c : format_.chunk)
       if (c == 0) return "chunk shape with a zero extent";
@@ -433,11 +479,20 @@ std::string H5Chunked::describe() {
   if (cls == H5T_INTEGER) {
     const bool is_signed = H5Tget_sign(type.id) == H5T_SGN_2;
     switch (size) {
-      case 1: format_.type = is_signed ? ElementType::i8 : ElementType::u8; break;
-      case 2: format_.type = is_signed ? ElementType::i16 : ElementType::u16; break;
-      case 4: format_.type = is_signed ? ElementType::i32 : ElementType::u32; break;
-      case 8: format_.type = is_signed ? ElementType::i64 : ElementType::u64; break;
-      default: ok = false;
+      case 1:
+        format_.type = is_signed ? ElementType::i8 : ElementType::u8;
+        break;
+      case 2:
+        format_.type = is_signed ? ElementType::i16 : ElementType::u16;
+        break;
+      case 4:
+        format_.type = is_signed ? ElementType::i32 : ElementType::u32;
+        break;
+      case 8:
+        format_.type = is_signed ? ElementType::i64 : ElementType::u64;
+        break;
+      default:
+        ok = false;
     }
   } else if (cls == H5T_FLOAT) {
     if (H5Tequal(type.id, H5T_IEEE_F32LE) > 0 || H5Tequal(type.id, H5T_IEEE_F32BE) > 0)
@@ -607,7 +662,8 @@ void RawInput::fetch(const std::vector<std::size_t>& lead, std::size_t j0, std::
                      RawRows& out) {
   const ChunkFormat& f = ds_.format();
   const std::size_t rank = f.dims.size();
-  if (lead.size() != rank - 2) throw std::logic_error("RawInput::fetch: leading indices of the wrong rank");
+  if (lead.size() != rank - 2)
+    throw std::logic_error("RawInput::fetch: leading indices of the wrong rank");
   const std::size_t cr = f.chunk[rank - 2], cc = f.chunk[rank - 1];
   out = RawRows();
   out.format_ = &f;

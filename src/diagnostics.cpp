@@ -100,8 +100,8 @@ void CurvilinearKinematicsKernel::compute(const Field& u, const Field& v, std::s
       flags.size() != n * nx)
     throw std::logic_error(
         "CurvilinearKinematicsKernel::compute: velocity band does not cover the halo");
-  for (Field* f : {&out.speed, &out.vorticity, &out.strain_normal, &out.strain_shear,
-                   &out.strain, &out.okubo_weiss})
+  for (Field* f : {&out.speed, &out.vorticity, &out.strain_normal, &out.strain_shear, &out.strain,
+                   &out.okubo_weiss})
     *f = Field(n, nx, nan);
 
   // Earth-centred components of rows [need_lo, need_hi): V = u e_hat + v n_hat.

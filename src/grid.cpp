@@ -243,7 +243,8 @@ public:
       throw std::invalid_argument("grid mapping attribute " + name + " is text, not a number");
     auto it = m_.numbers.find(name);
     if (it == m_.numbers.end()) return std::nullopt;
-    if (it->second.empty()) throw std::invalid_argument("grid mapping attribute " + name + " is empty");
+    if (it->second.empty())
+      throw std::invalid_argument("grid mapping attribute " + name + " is empty");
     for (double v : it->second)
       if (!std::isfinite(v))
         throw std::invalid_argument("grid mapping attribute " + name + " is not finite");
@@ -326,13 +327,14 @@ std::optional<Ellipsoid> cf_ellipsoid(const GridMapping& m, CfParameters& p, std
         throw std::invalid_argument("grid mapping attribute inverse_flattening = " +
                                     short_number(*rf) + " is not 0 (sphere) or >= 100");
       f = *rf == 0.0 ? 0.0 : 1.0 / *rf;
-      tokens = *rf == 0.0 ? " +R=" + fmt_number(*a) : " +a=" + fmt_number(*a) + " +rf=" + fmt_number(*rf);
+      tokens = *rf == 0.0 ? " +R=" + fmt_number(*a)
+                          : " +a=" + fmt_number(*a) + " +rf=" + fmt_number(*rf);
       // CF Table F.1: with all three given, b = a (1 - 1/rf) must hold.
       if (b && std::fabs(*b - *a * (1.0 - f)) > 1e-3)
-        throw std::invalid_argument("grid mapping attributes semi_minor_axis (" + short_number(*b) +
-                                    " m) and inverse_flattening (" + short_number(*rf) +
-                                    ") disagree (b = a (1 - 1/rf) = " +
-                                    short_number(*a * (1.0 - f)) + " m)");
+        throw std::invalid_argument(
+            "grid mapping attributes semi_minor_axis (" + short_number(*b) +
+            " m) and inverse_flattening (" + short_number(*rf) +
+            ") disagree (b = a (1 - 1/rf) = " + short_number(*a * (1.0 - f)) + " m)");
     } else if (b) {
       if (!(*b > 0.9 * *a && *b <= *a))
         throw std::invalid_argument("grid mapping attribute semi_minor_axis = " + short_number(*b) +
@@ -395,16 +397,18 @@ double polar_k0(const Ellipsoid& ell, double sp_deg) {
   const double phi = std::fabs(sp_deg) * deg;
   const double e = std::sqrt(ell.e2), s = std::sin(phi);
   const double m = std::cos(phi) / std::sqrt(1.0 - ell.e2 * s * s);
-  const double t = std::tan(pi / 4.0 - phi / 2.0) /
-                   std::pow((1.0 - e * s) / (1.0 + e * s), e / 2.0);
-  const double c = e > 0.0 ? std::sqrt(std::pow(1.0 + e, 1.0 + e) * std::pow(1.0 - e, 1.0 - e)) : 1.0;
+  const double t =
+      std::tan(pi / 4.0 - phi / 2.0) / std::pow((1.0 - e * s) / (1.0 + e * s), e / 2.0);
+  const double c =
+      e > 0.0 ? std::sqrt(std::pow(1.0 + e, 1.0 + e) * std::pow(1.0 - e, 1.0 - e)) : 1.0;
   return m * c / (2.0 * t);
 }
 
 struct Definition {
   std::string name, proj;
   Ellipsoid ellipsoid;
-  std::string figure;  // PROJ tokens of the figure as given (" +a=... +rf=..."), "" = from ellipsoid
+  std::string
+      figure;  // PROJ tokens of the figure as given (" +a=... +rf=..."), "" = from ellipsoid
   bool ellipsoid_given = false;
   std::vector<std::pair<std::string, std::string>> parameters;
 };
@@ -417,14 +421,16 @@ Definition cf_definition(const GridMapping& m, const std::string& gm_name) {
   std::string s;
   const auto lat = [&](const char* n) { return CfParameters::latitude(n, p.required(n)); };
   const auto lon = [&](const char* n) { return CfParameters::longitude(n, p.required(n)); };
-  const auto add = [&](const char* key, double v) { s += std::string(" +") + key + "=" + fmt_number(v); };
+  const auto add = [&](const char* key, double v) {
+    s += std::string(" +") + key + "=" + fmt_number(v);
+  };
   const auto standard_parallels = [&](std::size_t max_count) {
     auto v = p.values("standard_parallel");
     if (!v) return std::vector<double>{};
     if (v->size() > max_count)
       throw std::invalid_argument("grid mapping attribute standard_parallel has " +
-                                  std::to_string(v->size()) + " values (" + gm_name + " takes at most " +
-                                  std::to_string(max_count) + ")");
+                                  std::to_string(v->size()) + " values (" + gm_name +
+                                  " takes at most " + std::to_string(max_count) + ")");
     std::string text;
     for (double x : *v) {
       CfParameters::latitude("standard_parallel", x);
@@ -469,10 +475,9 @@ Definition cf_definition(const GridMapping& m, const std::string& gm_name) {
     add("lon_0", *lon0);
     if (!sp.empty()) {
       if (sp[0] * lat0 <= 0.0)
-        throw std::invalid_argument("grid mapping polar_stereographic: standard_parallel " +
-                                    short_number(sp[0]) +
-                                    " is not in the hemisphere of latitude_of_projection_origin " +
-                                    short_number(lat0));
+        throw std::invalid_argument(
+            "grid mapping polar_stereographic: standard_parallel " + short_number(sp[0]) +
+            " is not in the hemisphere of latitude_of_projection_origin " + short_number(lat0));
       if (k0) {
         CfParameters::scale("scale_factor_at_projection_origin", *k0);
         const double implied = polar_k0(d.ellipsoid, sp[0]);
@@ -511,8 +516,8 @@ Definition cf_definition(const GridMapping& m, const std::string& gm_name) {
   } else if (gm_name == "lambert_conformal_conic" || gm_name == "albers_conical_equal_area") {
     const auto sp = standard_parallels(2);
     if (sp.empty())
-      throw std::invalid_argument("grid mapping attribute standard_parallel is missing (needed by " +
-                                  gm_name + ")");
+      throw std::invalid_argument(
+          "grid mapping attribute standard_parallel is missing (needed by " + gm_name + ")");
     s = gm_name == "lambert_conformal_conic" ? "+proj=lcc" : "+proj=aea";
     add("lat_1", sp[0]);
     add("lat_2", sp.size() > 1 ? sp[1] : sp[0]);
@@ -567,8 +572,10 @@ PJ* projected_crs(PJ_CONTEXT* ctx, PJ* crs) {
     const PJ_TYPE t = proj_get_type(cur);
     PJ* next = nullptr;
     if (t == PJ_TYPE_PROJECTED_CRS) return cur;
-    if (t == PJ_TYPE_BOUND_CRS) next = proj_get_source_crs(ctx, cur);
-    else if (t == PJ_TYPE_COMPOUND_CRS) next = proj_crs_get_sub_crs(ctx, cur, 0);
+    if (t == PJ_TYPE_BOUND_CRS)
+      next = proj_get_source_crs(ctx, cur);
+    else if (t == PJ_TYPE_COMPOUND_CRS)
+      next = proj_crs_get_sub_crs(ctx, cur, 0);
     proj_destroy(cur);
     cur = next;
   }
@@ -615,7 +622,8 @@ Definition wkt_definition(const std::string& wkt) {
       proj_prime_meridian_get_parameters(h.ctx, pm, &pm_lon, &pm_unit, nullptr);
       proj_destroy(pm);
       if (pm_lon != 0.0)
-        throw std::invalid_argument("crs_wkt: prime meridian other than Greenwich is not supported");
+        throw std::invalid_argument(
+            "crs_wkt: prime meridian other than Greenwich is not supported");
     }
     PJ* op = proj_crs_get_coordoperation(h.ctx, proj);
     const char* method = nullptr;
@@ -629,15 +637,16 @@ Definition wkt_definition(const std::string& wkt) {
       throw std::invalid_argument("crs_wkt: the projection cannot be expressed for PROJ (" +
                                   proj_error(h.ctx) + ")");
     // Keep the projection and its parameters; the figure and units are set below.
-    static const char* drop[] = {"type", "units", "to_meter", "no_defs", "axis", "ellps", "datum",
-                                 "a", "b", "rf", "f", "R", "towgs84", "nadgrids", "geoidgrids",
-                                 "vunits", "pm", "wktext"};
+    static const char* drop[] = {"type",    "units",    "to_meter",   "no_defs", "axis", "ellps",
+                                 "datum",   "a",        "b",          "rf",      "f",    "R",
+                                 "towgs84", "nadgrids", "geoidgrids", "vunits",  "pm",   "wktext"};
     std::string out, tok;
     std::istringstream in(ps);
     while (in >> tok) {
-      const std::string key = tok.substr(tok[0] == '+' ? 1 : 0, tok.find('=') == std::string::npos
-                                                                   ? std::string::npos
-                                                                   : tok.find('=') - (tok[0] == '+' ? 1 : 0));
+      const std::string key =
+          tok.substr(tok[0] == '+' ? 1 : 0, tok.find('=') == std::string::npos
+                                                ? std::string::npos
+                                                : tok.find('=') - (tok[0] == '+' ? 1 : 0));
       bool keep = true;
       for (const char* k : drop) keep = keep && key != k;
       if (keep) out += (out.empty() ? "" : " ") + tok;
@@ -653,17 +662,23 @@ Definition wkt_definition(const std::string& wkt) {
 
 // CF Appendix F names: projected ones handled above, the rest refused clearly.
 const std::vector<std::string>& supported_mappings() {
-  static const std::vector<std::string> v = {
-      "polar_stereographic", "stereographic", "lambert_azimuthal_equal_area",
-      "lambert_conformal_conic", "transverse_mercator", "albers_conical_equal_area",
-      "azimuthal_equidistant", "mercator", "lambert_cylindrical_equal_area", "orthographic",
-      "sinusoidal"};
+  static const std::vector<std::string> v = {"polar_stereographic",
+                                             "stereographic",
+                                             "lambert_azimuthal_equal_area",
+                                             "lambert_conformal_conic",
+                                             "transverse_mercator",
+                                             "albers_conical_equal_area",
+                                             "azimuthal_equidistant",
+                                             "mercator",
+                                             "lambert_cylindrical_equal_area",
+                                             "orthographic",
+                                             "sinusoidal"};
   return v;
 }
 const std::vector<std::string>& unsupported_cf_mappings() {
   static const std::vector<std::string> v = {"latitude_longitude", "rotated_latitude_longitude",
-                                             "geostationary", "vertical_perspective",
-                                             "oblique_mercator", "healpix"};
+                                             "geostationary",      "vertical_perspective",
+                                             "oblique_mercator",   "healpix"};
   return v;
 }
 
@@ -728,12 +743,12 @@ Projection::Projection(const GridMapping& mapping) : impl_(std::make_unique<Impl
     const auto& cf_other = unsupported_cf_mappings();
     if (std::find(ok.begin(), ok.end(), name) == ok.end()) {
       if (std::find(cf_other.begin(), cf_other.end(), name) != cf_other.end())
-        throw std::invalid_argument("grid_mapping_name \"" + name +
-                                    "\" is not supported for x/y grids (supported: " +
-                                    join_names(ok) + ")");
-      throw std::invalid_argument("unknown grid_mapping_name \"" + name +
-                                  "\" (not a CF 1.12 Appendix F name; supported: " +
-                                  join_names(ok) + ")");
+        throw std::invalid_argument(
+            "grid_mapping_name \"" + name +
+            "\" is not supported for x/y grids (supported: " + join_names(ok) + ")");
+      throw std::invalid_argument(
+          "unknown grid_mapping_name \"" + name +
+          "\" (not a CF 1.12 Appendix F name; supported: " + join_names(ok) + ")");
     }
     impl_->def = cf_definition(mapping, name);
     if (!impl_->def.ellipsoid_given && from_wkt) {
@@ -751,7 +766,8 @@ Projection::Projection(const GridMapping& mapping) : impl_(std::make_unique<Impl
   impl_->pj = std::make_unique<PjHandle>(impl_->definition);
   if (!name.empty() && from_wkt)
     impl_->wkt_pj = std::make_unique<PjHandle>(
-        from_wkt->proj + (from_wkt->figure.empty() ? ellipsoid_tokens(from_wkt->ellipsoid) : from_wkt->figure) +
+        from_wkt->proj +
+        (from_wkt->figure.empty() ? ellipsoid_tokens(from_wkt->ellipsoid) : from_wkt->figure) +
         " +units=m +no_defs");
 }
 
@@ -824,8 +840,9 @@ double Projection::disagreement_m(double x, double y) const {
   if (std::isnan(la1)) return 0.0;
   // Great-circle angle between the two positions (haversine) on R1 [2].
   const double dphi = (la2 - la1) * deg, dlam = std::remainder(lo2 - lo1, 360.0) * deg;
-  const double h = std::sin(dphi / 2) * std::sin(dphi / 2) +
-                   std::cos(la1 * deg) * std::cos(la2 * deg) * std::sin(dlam / 2) * std::sin(dlam / 2);
+  const double h =
+      std::sin(dphi / 2) * std::sin(dphi / 2) +
+      std::cos(la1 * deg) * std::cos(la2 * deg) * std::sin(dlam / 2) * std::sin(dlam / 2);
   return 2.0 * earth::mean_radius * std::asin(std::min(1.0, std::sqrt(h)));
 }
 
@@ -934,18 +951,24 @@ CurvilinearGrid::CurvilinearGrid(const GridMapping& mapping, std::vector<double>
 
 CurvilinearGrid::CurvilinearGrid(std::size_t ny, std::size_t nx, std::vector<double> lat_deg,
                                  std::vector<double> lon_deg, EarthModel earth)
-    : ny_(ny), nx_(nx), lat_deg_(std::move(lat_deg)), lon_deg_(std::move(lon_deg)),
+    : ny_(ny),
+      nx_(nx),
+      lat_deg_(std::move(lat_deg)),
+      lon_deg_(std::move(lon_deg)),
       ellipsoid_(ellipsoid_of(earth)) {
-  if (ny_ < 2 || nx_ < 2) throw std::invalid_argument("2-D latitude/longitude grid has fewer than 2 rows or columns");
+  if (ny_ < 2 || nx_ < 2)
+    throw std::invalid_argument("2-D latitude/longitude grid has fewer than 2 rows or columns");
   const std::size_t n = ny_ * nx_;
   if (lat_deg_.size() != n || lon_deg_.size() != n)
     throw std::invalid_argument("2-D latitude/longitude sizes differ from rows x columns");
   for (std::size_t k = 0; k < n; ++k) {
     if (!std::isfinite(lat_deg_[k]) || !std::isfinite(lon_deg_[k]))
-      throw std::invalid_argument("2-D latitude/longitude hold a missing or non-finite value at node " +
-                                  node_text(k / nx_, k % nx_));
+      throw std::invalid_argument(
+          "2-D latitude/longitude hold a missing or non-finite value at node " +
+          node_text(k / nx_, k % nx_));
     if (std::fabs(lat_deg_[k]) > 90.0)
-      throw std::invalid_argument("2-D latitude outside [-90, 90] at node " + node_text(k / nx_, k % nx_));
+      throw std::invalid_argument("2-D latitude outside [-90, 90] at node " +
+                                  node_text(k / nx_, k % nx_));
   }
   col_.resize(nx_);
   row_.resize(ny_);
@@ -979,8 +1002,8 @@ CurvilinearGrid::CurvilinearGrid(std::size_t ny, std::size_t nx, std::vector<dou
     double sp = 0, cp = 0, sl = 0, cl = 0;
     sincosd(lat_deg_[k], sp, cp);
     sincosd(lon_deg_[k], sl, cl);
-    const double east[3] = {-sl, cl, 0.0};                // e_hat
-    const double north[3] = {-sp * cl, -sp * sl, cp};     // n_hat
+    const double east[3] = {-sl, cl, 0.0};             // e_hat
+    const double north[3] = {-sp * cl, -sp * sl, cp};  // n_hat
     const double* p0 = &pos[3 * k];
     // Tangent-plane coordinate of the node at offset m along one index
     // direction: (P_m - P_0) . unit; NaN outside the grid.
@@ -1015,10 +1038,9 @@ CurvilinearGrid::CurvilinearGrid(std::size_t ny, std::size_t nx, std::vector<dou
     spacing[k] = std::min(std::hypot(ei, ni), std::hypot(ej, nj));
   }
   if (first_bad < n)
-    throw std::invalid_argument(
-        "2-D latitude/longitude do not form a grid around node " +
-        node_text(first_bad / nx_, first_bad % nx_) +
-        " (neighbouring nodes coincide or lie on one line)");
+    throw std::invalid_argument("2-D latitude/longitude do not form a grid around node " +
+                                node_text(first_bad / nx_, first_bad % nx_) +
+                                " (neighbouring nodes coincide or lie on one line)");
   std::vector<double> s;
   for (double x : spacing)
     if (std::isfinite(x)) s.push_back(x);

@@ -299,7 +299,8 @@ Gradient CurvilinearDifferentiator::gradient(const Field& band, std::size_t b0, 
 
 CurvilinearGeostrophicKernel::CurvilinearGeostrophicKernel(const CurvilinearGrid& grid,
                                                            const CurrentsOptions& options)
-    : grid_(grid), options_(options),
+    : grid_(grid),
+      options_(options),
       diff_(grid, options.order, options.coast == CoastMethod::one_sided) {
   validate(options_);
   for (std::size_t j = 0; j < grid.ny() && !nested_; ++j)
@@ -347,8 +348,7 @@ void CurvilinearGeostrophicKernel::compute(const Field& eta, std::size_t e0, std
 }
 
 void CurvilinearGeostrophicKernel::compute_row(const Field& eta, std::size_t e0, std::size_t j,
-                                               double* u, double* v,
-                                               std::uint8_t* flags) const {
+                                               double* u, double* v, std::uint8_t* flags) const {
   constexpr double theta_deg = 2.2;  // blend e-folding latitude [3] (from memory)
   const std::size_t nx = grid_.nx();
   const int hw = options_.order / 2, reach = diff_.reach();
@@ -358,15 +358,26 @@ void CurvilinearGeostrophicKernel::compute_row(const Field& eta, std::size_t e0,
   const auto& cc = grid_.col_coord();
   const auto& rc = grid_.row_coord();
   for (std::size_t i = 0; i < nx; ++i) {
-    if (std::isnan(eta_row[i])) { flags[i] = quality::missing_height; continue; }
+    if (std::isnan(eta_row[i])) {
+      flags[i] = quality::missing_height;
+      continue;
+    }
     const Mode mode = mode_of(j, i);
-    if (mode == pole) { flags[i] = quality::masked_pole; continue; }
-    if (mode == masked_equator) { flags[i] = quality::masked_equator; continue; }
+    if (mode == pole) {
+      flags[i] = quality::masked_pole;
+      continue;
+    }
+    if (mode == masked_equator) {
+      flags[i] = quality::masked_equator;
+      continue;
+    }
     const double lat = grid_.lat_deg(j, i);
     const double f = coriolis(lat);
     double g = options_.gravity_value;
-    if (options_.gravity == GravityModel::standard) g = earth::standard_gravity;
-    else if (options_.gravity == GravityModel::wgs84) g = normal_gravity(lat);
+    if (options_.gravity == GravityModel::standard)
+      g = earth::standard_gravity;
+    else if (options_.gravity == GravityModel::wgs84)
+      g = normal_gravity(lat);
     std::uint8_t flag = 0;
     double uf = nan, vf = nan, ub = nan, vb = nan;
     if (mode == f_plane || mode == blend) {
@@ -387,8 +398,7 @@ void CurvilinearGeostrophicKernel::compute_row(const Field& eta, std::size_t e0,
         Gradient gc, gr;
         if (ic >= 0 && ic < static_cast<long>(nx))
           gc = diff_.gradient(eta, e0, j, static_cast<std::size_t>(ic));
-        if (jr >= lo && jr < hi)
-          gr = diff_.gradient(eta, e0, static_cast<std::size_t>(jr), i);
+        if (jr >= lo && jr < hi) gr = diff_.gradient(eta, e0, static_cast<std::size_t>(jr), i);
         const bool okc = gc.status != Derivative::failed, okr = gr.status != Derivative::failed;
         // Offsets beyond hw enter only a fallback stencil, which is flagged anyway.
         if (m >= -hw && m <= hw)
@@ -424,8 +434,9 @@ void CurvilinearGeostrophicKernel::compute_row(const Field& eta, std::size_t e0,
         const double bet = 2.0 * earth::omega * c / meridional_radius(grid_.ellipsoid(), phi);
         const double eta_nn = b.n_c * dnc.value + b.n_r * dnr.value;  // d/dn (d eta/dn)
         const double eta_en = b.n_c * dec.value + b.n_r * der.value;  // d/dn (d eta/de)
-        ub = -g / bet * eta_nn;  // u_b = -(g/beta) eta_yy  [2]
-        vb = g / bet * eta_en;   // v_b =  (g/beta) eta_xy  [2]
+        // u_b = -(g/beta) eta_yy,  v_b = (g/beta) eta_xy  [2]
+        ub = -g / bet * eta_nn;
+        vb = g / bet * eta_en;
         if (inner_shortened || dnc.status == Derivative::shortened ||
             dnr.status == Derivative::shortened || dec.status == Derivative::shortened ||
             der.status == Derivative::shortened)
@@ -434,14 +445,21 @@ void CurvilinearGeostrophicKernel::compute_row(const Field& eta, std::size_t e0,
     }
     double uu = nan, vv = nan;
     if (mode == f_plane) {
-      uu = uf; vv = vf;
+      uu = uf;
+      vv = vf;
     } else if (mode == beta_plane) {
-      uu = ub; vv = vb;
+      uu = ub;
+      vv = vb;
       flag |= quality::beta_plane;
     } else {  // blend [3]: W_b u_b + (1 - W_b) u_f; at f = 0 the f-plane weight is 0
       const double w = std::exp(-(lat / theta_deg) * (lat / theta_deg));
-      if (f == 0.0) { uu = ub; vv = vb; }
-      else { uu = w * ub + (1.0 - w) * uf; vv = w * vb + (1.0 - w) * vf; }
+      if (f == 0.0) {
+        uu = ub;
+        vv = vb;
+      } else {
+        uu = w * ub + (1.0 - w) * uf;
+        vv = w * vb + (1.0 - w) * vf;
+      }
       flag |= quality::blended;
     }
     if (std::isnan(uu) || std::isnan(vv)) {

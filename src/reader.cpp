@@ -28,11 +28,12 @@
 #include <cctype>
 #include <cmath>
 #include <cstdio>
+#include <exception>
 #include <filesystem>
 #include <limits>
 #include <mutex>
+#include <sstream>
 #include <stdexcept>
-#include <exception>
 #include <utility>
 
 #include "seatilt/chunkio.hpp"
@@ -798,6 +799,7 @@ struct Reader::Impl {
   std::unique_ptr<chunkio::RawInput> raw;
   std::string read_path;
   bool cache_sized = false;  // nc_get_vara path: chunk cache set for the band height
+  bool horizontal = false;   // ReaderOptions::horizontal_grids
 
   ~Impl() {
     raw.reset();  // HDF5 handle first, then netCDF's
@@ -816,6 +818,8 @@ struct Reader::Impl {
   int choose_variable(const std::vector<VarSummary>& vars, const ReaderOptions& options);
   void resolve_kind(const VarSummary& v);
   void resolve_layout(const VarSummary& v, const std::vector<VarSummary>& vars);
+  bool resolve_plane(const VarSummary& v, const std::vector<VarSummary>& vars);
+  AuxVar read_aux(const VarSummary& c) const;
   CoordVar read_coordinate(const VarSummary& c, Axis axis) const;
   void resolve_units(const ReaderOptions& options);
   void resolve_packing();
@@ -1079,15 +1083,17 @@ void Reader::Impl::resolve_layout(const VarSummary& v, const std::vector<VarSumm
   };
   const auto lat_at = find_axis(Axis::lat);
   const auto lon_at = find_axis(Axis::lon);
-  if (lat_at.empty())
+  // Projected x/y or 2-D latitude/longitude (docs/projected.md), when asked for.
+  const bool plane = horizontal && (lat_at.empty() || lon_at.empty()) && resolve_plane(v, vars);
+  if (!plane && lat_at.empty())
     fail(v.name, "no latitude coordinate among its dimensions " + layout +
                      " (a 1-D variable with units degrees_north, standard_name latitude or axis Y)");
-  if (lon_at.empty())
+  if (!plane && lon_at.empty())
     fail(v.name, "no longitude coordinate among its dimensions " + layout +
                      " (a 1-D variable with units degrees_east, standard_name longitude or axis X)");
-  if (lat_at.size() > 1 || lon_at.size() > 1)
+  if (!plane && (lat_at.size() > 1 || lon_at.size() > 1))
     fail(v.name, "several latitude or longitude dimensions " + layout + "; " + expected);
-  if (nd < 2 || lon_at[0] != nd - 1 || lat_at[0] != nd - 2)
+  if (!plane && (nd < 2 || lon_at[0] != nd - 1 || lat_at[0] != nd - 2))
     fail(v.name, "unsupported dimension order " + layout + ": latitude is " +
                      dim_name(v.dims[lat_at[0]]) + ", longitude is " + dim_name(v.dims[lon_at[0]]) +
                      "; " + expected);
@@ -1112,8 +1118,10 @@ void Reader::Impl::resolve_layout(const VarSummary& v, const std::vector<VarSumm
     }
   }
 
-  info.lat = read_coordinate(*coords[nd - 2], Axis::lat);
-  info.lon = read_coordinate(*coords[nd - 1], Axis::lon);
+  if (!plane) {
+    info.lat = read_coordinate(*coords[nd - 2], Axis::lat);
+    info.lon = read_coordinate(*coords[nd - 1], Axis::lon);
+  }
   info.ny = info.lat.values.size();
   info.nx = info.lon.values.size();
   info.nt = 1;
@@ -1127,6 +1135,158 @@ void Reader::Impl::resolve_layout(const VarSummary& v, const std::vector<VarSumm
     info.calendar = cal ? lower(trim(*cal)) : "standard";
     if (info.calendar.empty()) info.calendar = "standard";
   }
+}
+
+// ---- projected and curvilinear grids (reader.hpp; docs/projected.md) -----------------
+
+AuxVar Reader::Impl::read_aux(const VarSummary& c) const {
+  AuxVar a;
+  a.name = c.name;
+  a.nc_type = c.type;
+  a.attrs = copy_attributes(ncid, c.id);
+  if (!is_numeric_type(c.type)) fail(c.name, "is not numeric");
+  std::size_t n = 1;
+  for (int d : c.dims) n *= dim_length(d);
+  a.values.resize(n);
+  if (n > 0)
+    check(nc_get_var_double(ncid, c.id, a.values.data()), c.name, "cannot read its values");
+  // _FillValue/missing_value (stored units) are missing; then unpack [CF 8.1].
+  std::vector<double> fills;
+  for (const char* name : {"_FillValue", "missing_value"})
+    if (auto f = number_att(ncid, c.id, name)) fills.insert(fills.end(), f->begin(), f->end());
+  const double sf = number_att(ncid, c.id, "scale_factor").value_or(std::vector<double>{1.0}).at(0);
+  const double ao = number_att(ncid, c.id, "add_offset").value_or(std::vector<double>{0.0}).at(0);
+  for (double& x : a.values) {
+    if (std::find(fills.begin(), fills.end(), x) != fills.end() || !std::isfinite(x))
+      x = std::numeric_limits<double>::quiet_NaN();
+    else
+      x = x * sf + ao;
+  }
+  return a;
+}
+
+bool Reader::Impl::resolve_plane(const VarSummary& v, const std::vector<VarSummary>& vars) {
+  const std::size_t nd = v.dims.size();
+  if (nd < 2) return false;
+  const int yd = v.dims[nd - 2], xd = v.dims[nd - 1];
+  // 1-D projection coordinates [CF Appendix F]: standard_name
+  // projection_x/y_coordinate, or axis X/Y with a length unit.
+  const auto projection_axis = [&](const VarSummary& c, const char* which) {
+    const std::string sn = trim(text_att(ncid, c.id, "standard_name").value_or(""));
+    if (sn == std::string("projection_") + which + "_coordinate") return true;
+    const std::string ax = lower(trim(text_att(ncid, c.id, "axis").value_or("")));
+    double scale = 0, offset = 0;
+    return ax == which && length_to_metres(text_att(ncid, c.id, "units").value_or(""), scale,
+                                           offset) == UnitStatus::ok;
+  };
+  const VarSummary* xc = nullptr;
+  const VarSummary* yc = nullptr;
+  for (const auto& c : vars) {
+    if (c.dims.size() != 1 || c.id == v.id || !is_numeric_type(c.type)) continue;
+    if (c.dims[0] == xd && projection_axis(c, "x") && (!xc || c.name == dim_name(xd))) xc = &c;
+    if (c.dims[0] == yd && projection_axis(c, "y") && (!yc || c.name == dim_name(yd))) yc = &c;
+  }
+  // 2-D latitude/longitude on (rows, columns) named by the coordinates attribute [CF 5.2].
+  const VarSummary* la = nullptr;
+  const VarSummary* lo = nullptr;
+  {
+    std::istringstream names(text_att(ncid, v.id, "coordinates").value_or(""));
+    for (std::string name; names >> name;)
+      for (const auto& c : vars) {
+        if (c.name != name || c.dims.size() != 2 || c.dims[0] != yd || c.dims[1] != xd) continue;
+        const Axis a = classify_coordinate(ncid, c.id);
+        if (a == Axis::lat && !la) la = &c;
+        if (a == Axis::lon && !lo) lo = &c;
+      }
+  }
+  // grid_mapping: "crs", or the CF 1.7 extended form "crs: x y [crs2: lat lon]"
+  // (the mapping that lists the x coordinate, else the first) [CF 5.6].
+  std::string gm_name;
+  {
+    std::istringstream tokens(text_att(ncid, v.id, "grid_mapping").value_or(""));
+    std::string tok, current, first;
+    while (tokens >> tok) {
+      if (tok.back() == ':') {
+        current = tok.substr(0, tok.size() - 1);
+        if (first.empty()) first = current;
+      } else if (current.empty()) {
+        gm_name = tok;  // simple form
+      } else if (xc && tok == xc->name && gm_name.empty()) {
+        gm_name = current;
+      }
+    }
+    if (gm_name.empty()) gm_name = first;
+  }
+  const bool xy = xc != nullptr && yc != nullptr;
+  const auto read_2d = [&] {
+    if (la && lo) {
+      info.lat2d = read_aux(*la);
+      info.lon2d = read_aux(*lo);
+    }
+  };
+  if (xy && !gm_name.empty()) {
+    const VarSummary* gm = nullptr;
+    for (const auto& c : vars)
+      if (c.name == gm_name) gm = &c;
+    if (!gm)
+      fail(v.name, "grid_mapping names \"" + gm_name + "\", which is not a variable in the file");
+    double sx = 0, sy = 0, offset = 0;
+    const std::string ux = text_att(ncid, xc->id, "units").value_or("");
+    const std::string uy = text_att(ncid, yc->id, "units").value_or("");
+    if (length_to_metres(ux, sx, offset) != UnitStatus::ok || offset != 0.0)
+      fail(xc->name, "projection x coordinate has units \"" + ux + "\", not a length");
+    if (length_to_metres(uy, sy, offset) != UnitStatus::ok || offset != 0.0)
+      fail(yc->name, "projection y coordinate has units \"" + uy + "\", not a length");
+    if (std::fabs(sx - sy) > 1e-12 * sx)
+      fail(yc->name, "projection x and y have different units (\"" + ux + "\", \"" + uy + "\")");
+    info.lon = read_coordinate(*xc, Axis::none);
+    info.lat = read_coordinate(*yc, Axis::none);
+    for (double x : info.lon.values) info.x_m.push_back(x * sx);
+    for (double y : info.lat.values) info.y_m.push_back(y * sy);
+    AuxVar g;
+    g.name = gm->name;
+    g.nc_type = gm->type;
+    g.attrs = copy_attributes(ncid, gm->id);
+    info.grid_mapping.variable = gm->name;
+    info.grid_mapping.unit_m = sx;
+    for (const Attribute& a : g.attrs) {
+      if (a.nc_type == NC_CHAR || a.nc_type == NC_STRING)
+        info.grid_mapping.texts[a.name] = a.text;
+      else
+        info.grid_mapping.numbers[a.name] = a.values;
+    }
+    info.grid_mapping_var = std::move(g);
+    read_2d();
+    info.grid_kind = GridKind::projected;
+  } else if (la && lo) {
+    // Row and column coordinates: a 1-D numeric variable named like the
+    // dimension when there is one, else the dimension alone.
+    const auto dimension_coordinate = [&](int dim) {
+      for (const auto& c : vars)
+        if (c.dims.size() == 1 && c.dims[0] == dim && c.name == dim_name(dim) &&
+            is_numeric_type(c.type))
+          return read_coordinate(c, Axis::none);
+      CoordVar cv;
+      cv.dim = dim_name(dim);
+      cv.nc_type = NC_INT;
+      cv.values.resize(dim_length(dim));
+      for (std::size_t k = 0; k < cv.values.size(); ++k) cv.values[k] = static_cast<double>(k);
+      return cv;
+    };
+    info.lat = dimension_coordinate(yd);
+    info.lon = dimension_coordinate(xd);
+    read_2d();
+    info.grid_kind = GridKind::curvilinear;
+  } else if (xy) {
+    fail(v.name, "has projection x/y coordinates (" + xc->name + ", " + yc->name +
+                     ") but no grid_mapping attribute naming a CF grid mapping variable and no "
+                     "2-D latitude/longitude in a coordinates attribute");
+  } else {
+    return false;
+  }
+  if (info.lat.values.size() < 2 || info.lon.values.size() < 2)
+    fail(v.name, "the grid has fewer than 2 rows or columns");
+  return true;
 }
 
 void Reader::Impl::resolve_units(const ReaderOptions& options) {
@@ -1387,6 +1547,7 @@ Reader::Reader(const std::string& path, const ReaderOptions& options)
   m.info.storage_type = v.type;
   if (!is_numeric_type(v.type)) m.fail(v.name, "is not a numeric variable");
   m.resolve_kind(v);
+  m.horizontal = options.horizontal_grids;
   m.resolve_layout(v, vars);
   m.resolve_units(options);
   m.resolve_packing();

@@ -19,12 +19,14 @@
 // thread stores band k-1 and fetches band k+2.
 #include "seatilt/tiling.hpp"
 
+#include <netcdf.h>
 #include <omp.h>
 
 #include <algorithm>
 #include <atomic>
 #include <cmath>
 #include <condition_variable>
+#include <cstdio>
 #include <cstdlib>
 #include <cstring>
 #include <exception>
@@ -263,33 +265,78 @@ void apply_environment(ReaderOptions& reader, WriterSettings& writer) {
   }
 }
 
+/// The velocity step of the pipeline (GeostrophicKernel or
+/// CurvilinearGeostrophicKernel behind one interface).
+class VelocityStep {
+public:
+  virtual ~VelocityStep() = default;
+  [[nodiscard]] virtual std::size_t halo_rows() const = 0;
+  virtual void compute(const Field& eta, std::size_t e0, std::size_t j0, std::size_t n, Field& u,
+                       Field& v, std::vector<std::uint8_t>& flags) const = 0;
+};
+template <class Kernel>
+class VelocityStepOf final : public VelocityStep {
+public:
+  explicit VelocityStepOf(const Kernel& k) : k_(k) {}
+  [[nodiscard]] std::size_t halo_rows() const override { return k_.halo_rows(); }
+  void compute(const Field& eta, std::size_t e0, std::size_t j0, std::size_t n, Field& u, Field& v,
+               std::vector<std::uint8_t>& flags) const override {
+    k_.compute(eta, e0, j0, n, u, v, flags);
+  }
+
+private:
+  const Kernel& k_;
+};
+
+/// The diagnostics step (KinematicsKernel or CurvilinearKinematicsKernel).
+class KinematicsStep {
+public:
+  virtual ~KinematicsStep() = default;
+  [[nodiscard]] virtual std::size_t halo_rows() const = 0;
+  virtual void compute(const Field& u, const Field& v, std::size_t b0, std::size_t j0,
+                       std::size_t n, Kinematics& out, std::vector<std::uint8_t>& flags) const = 0;
+};
+template <class Kernel>
+class KinematicsStepOf final : public KinematicsStep {
+public:
+  explicit KinematicsStepOf(const Kernel& k) : k_(k) {}
+  [[nodiscard]] std::size_t halo_rows() const override { return k_.halo_rows(); }
+  void compute(const Field& u, const Field& v, std::size_t b0, std::size_t j0, std::size_t n,
+               Kinematics& out, std::vector<std::uint8_t>& flags) const override {
+    k_.compute(u, v, b0, j0, n, out, flags);
+  }
+
+private:
+  const Kernel& k_;
+};
+
 class Pipeline {
 public:
-  Pipeline(const CurrentsJob& job, Reader& reader, Writer& writer, const GeostrophicKernel& kernel,
-           const KinematicsKernel& kinematics, const std::vector<OutputVariable>& variables,
-           std::size_t rows, int threads)
-      : job_(job),
-        reader_(reader),
-        writer_(writer),
-        kernel_(kernel),
-        kinematics_(kinematics),
-        info_(reader.info()),
-        ny_(reader.info().ny),
-        nx_(reader.info().nx),
-        nt_(reader.info().nt),
-        hv_(kernel.halo_rows()),
-        hd_(kinematics.halo_rows()),
-        cr_(writer.chunk_rows()),
-        threads_(std::max(1, threads)),
-        bands_(plan_bands(ny_, rows)) {
-    for (const OutputVariable& var : variables) {
-      sources_.push_back(source_of(var));
-      elem_.push_back(var.type == OutputType::float32 ? sizeof(float) : 1);
-    }
-    steps_valid_ = std::vector<std::atomic<std::size_t>>(nt_);
-    steps_left_ = std::vector<std::atomic<std::size_t>>(nt_);
-    for (auto& s : steps_left_) s = bands_.size();
-  }
+ Pipeline(const CurrentsJob& job, Reader& reader, Writer& writer, const VelocityStep& kernel,
+          const KinematicsStep& kinematics, const std::vector<OutputVariable>& variables,
+          std::size_t rows, int threads)
+     : job_(job),
+       reader_(reader),
+       writer_(writer),
+       kernel_(kernel),
+       kinematics_(kinematics),
+       info_(reader.info()),
+       ny_(reader.info().ny),
+       nx_(reader.info().nx),
+       nt_(reader.info().nt),
+       hv_(kernel.halo_rows()),
+       hd_(kinematics.halo_rows()),
+       cr_(writer.chunk_rows()),
+       threads_(std::max(1, threads)),
+       bands_(plan_bands(ny_, rows)) {
+   for (const OutputVariable& var : variables) {
+     sources_.push_back(source_of(var));
+     elem_.push_back(var.type == OutputType::float32 ? sizeof(float) : 1);
+   }
+   steps_valid_ = std::vector<std::atomic<std::size_t>>(nt_);
+   steps_left_ = std::vector<std::atomic<std::size_t>>(nt_);
+   for (auto& s : steps_left_) s = bands_.size();
+ }
 
   CurrentsSummary run();
 
@@ -325,8 +372,8 @@ private:
   const CurrentsJob& job_;
   Reader& reader_;
   Writer& writer_;
-  const GeostrophicKernel& kernel_;
-  const KinematicsKernel& kinematics_;
+  const VelocityStep& kernel_;
+  const KinematicsStep& kinematics_;
   const HeightInfo& info_;
   const std::size_t ny_, nx_, nt_, hv_, hd_, cr_;
   const int threads_;
@@ -715,7 +762,166 @@ CurrentsSummary Pipeline::run() {
   return sum;
 }
 
+// ---- projected and curvilinear grids (docs/projected.md) -------------------------------
+
+/// Great-circle distance (m) between two positions (degrees) on the mean
+/// radius R1 (haversine; enough for a consistency check).
+double distance_m(double lat1, double lon1, double lat2, double lon2) {
+  constexpr double deg = 3.14159265358979323846 / 180.0;
+  const double dphi = (lat2 - lat1) * deg, dlam = std::remainder(lon2 - lon1, 360.0) * deg;
+  const double h =
+      std::sin(dphi / 2) * std::sin(dphi / 2) +
+      std::cos(lat1 * deg) * std::cos(lat2 * deg) * std::sin(dlam / 2) * std::sin(dlam / 2);
+  return 2.0 * earth::mean_radius * std::asin(std::min(1.0, std::sqrt(h)));
+}
+
+Attribute replaced_number(const std::string& name, double value) {
+  return number_attribute(name, NC_DOUBLE, {value});
+}
+
+/// A name for an added variable: WANT unless INFO already uses it, else ALT.
+std::string free_name(const HeightInfo& info, const std::vector<OutputVariable>& vars,
+                      const std::string& want, const std::string& alt) {
+  const auto used = [&](const std::string& n) {
+    if (n == info.lat.name || n == info.lon.name || (info.time && n == info.time->name))
+      return true;
+    if (info.grid_mapping_var && n == info.grid_mapping_var->name) return true;
+    for (const OutputVariable& v : vars)
+      if (v.name == n) return true;
+    return false;
+  };
+  return used(want) ? alt : want;
+}
+
+/// The 2-D latitude or longitude written to the output: the file's own
+/// (curvilinear), or the grid's nodes under the file's name when it had one.
+AuxVar output_aux(const std::optional<AuxVar>& in, const std::vector<double>& values,
+                  const std::string& name, bool latitude) {
+  AuxVar a;
+  a.nc_type = NC_DOUBLE;
+  a.values = values;
+  if (in) {
+    a.name = in->name;
+    a.attrs = in->attrs;
+    return a;
+  }
+  a.name = name;
+  a.attrs = {text_attribute("standard_name", latitude ? "latitude" : "longitude"),
+             text_attribute("long_name",
+                            latitude ? "latitude of the grid node" : "longitude of the grid node"),
+             text_attribute("units", latitude ? "degrees_north" : "degrees_east")};
+  return a;
+}
+
+CurrentsSummary run_currents_plane(const CurrentsJob& job, Reader& reader, WriterSettings ws) {
+  const HeightInfo& info = reader.info();
+  const CurvilinearGrid grid = make_curvilinear_grid(info, job.options.earth);
+  const CurvilinearGeostrophicKernel kernel(grid, job.options);
+  const CurvilinearKinematicsKernel kinematics(grid, job.options.order, job.options.coast);
+  const std::size_t hv = kernel.halo_rows(), hd = kinematics.halo_rows();
+  const std::size_t ny = grid.ny(), nx = grid.nx();
+
+  auto variables = currents_variables(job.fields, info.kind);
+  HeightInfo layout = info;
+  layout.lat2d =
+      output_aux(info.lat2d, grid.lat_deg(), free_name(info, variables, "lat", "node_lat"), true);
+  layout.lon2d =
+      output_aux(info.lon2d, grid.lon_deg(), free_name(info, variables, "lon", "node_lon"), false);
+  for (OutputVariable& v : variables) {
+    if (layout.grid_mapping_var)
+      v.attrs.push_back(text_attribute("grid_mapping", layout.grid_mapping_var->name));
+    v.attrs.push_back(text_attribute("coordinates", layout.lat2d->name + " " + layout.lon2d->name));
+  }
+
+  ws.global_attrs = currents_global_attributes(info, job.options, job.command_line);
+  double lat_lo = 90, lat_hi = -90, lon_lo = 360, lon_hi = -360;
+  for (std::size_t k = 0; k < ny * nx; ++k) {
+    lat_lo = std::min(lat_lo, grid.lat_deg()[k]);
+    lat_hi = std::max(lat_hi, grid.lat_deg()[k]);
+    lon_lo = std::min(lon_lo, grid.lon_deg()[k]);
+    lon_hi = std::max(lon_hi, grid.lon_deg()[k]);
+  }
+  std::string description =
+      "curvilinear: 2-D latitude/longitude " + layout.lat2d->name + ", " + layout.lon2d->name;
+  std::string figure;
+  if (const Projection* p = grid.projection()) {
+    description = "projected: " + p->name() + " (" + p->definition() + ")";
+    for (const auto& kv : p->parameters())
+      if (kv.first == "ellipsoid") figure = "projection ellipsoid, " + kv.second;
+  }
+  for (Attribute& a : ws.global_attrs) {
+    if (a.name == "geospatial_lat_min") a = replaced_number(a.name, lat_lo);
+    if (a.name == "geospatial_lat_max") a = replaced_number(a.name, lat_hi);
+    if (a.name == "geospatial_lon_min") a = replaced_number(a.name, lon_lo);
+    if (a.name == "geospatial_lon_max") a = replaced_number(a.name, lon_hi);
+    if (a.name == "geostrophy_earth_model" && !figure.empty()) a = text_attribute(a.name, figure);
+  }
+  ws.global_attrs.push_back(text_attribute("geostrophy_grid", description));
+  Writer writer(job.output, layout, variables, ws);
+
+  const std::size_t rows =
+      job.band_rows > 0
+          ? std::min(job.band_rows, ny)
+          : band_rows_for_budget(nx, ny, hv + hd, job.memory_bytes, writer.chunk_rows());
+  const VelocityStepOf<CurvilinearGeostrophicKernel> velocity_step(kernel);
+  const KinematicsStepOf<CurvilinearKinematicsKernel> kinematics_step(kinematics);
+  Pipeline pipeline(job, reader, writer, velocity_step, kinematics_step, variables, rows,
+                    omp_get_max_threads());
+  CurrentsSummary sum = pipeline.run();
+  writer.set_global_text("seatilt_status", "complete");
+  writer.commit();
+  return sum;
+}
+
 }  // namespace
+
+CurvilinearGrid make_curvilinear_grid(const HeightInfo& info, EarthModel earth) {
+  if (info.grid_kind == GridKind::projected) {
+    const std::string var = info.grid_mapping_var ? info.grid_mapping_var->name : info.variable;
+    std::optional<CurvilinearGrid> grid;
+    try {
+      grid.emplace(info.grid_mapping, info.x_m, info.y_m);
+    } catch (const std::invalid_argument& e) {
+      throw InputError(input_message(info.path, var, e.what()));
+    }
+    if (info.lat2d && info.lon2d && info.lat2d->values.size() == grid->lat_deg().size() &&
+        info.lon2d->values.size() == grid->lon_deg().size()) {
+      // The file's 2-D latitude/longitude must be the projection's nodes (CF 5.6).
+      double worst = 0;
+      std::size_t at = 0;
+      for (std::size_t k = 0; k < grid->lat_deg().size(); ++k) {
+        const double la = info.lat2d->values[k], lo = info.lon2d->values[k];
+        if (std::isnan(la) || std::isnan(lo)) continue;
+        const double d = distance_m(la, lo, grid->lat_deg()[k], grid->lon_deg()[k]);
+        if (d > worst) {
+          worst = d;
+          at = k;
+        }
+      }
+      if (worst > 0.25 * grid->spacing_m()) {
+        char buf[64];
+        std::snprintf(buf, sizeof buf, "%.0f m", worst);
+        throw InputError(input_message(
+            info.path, info.lat2d->name,
+            "latitude/longitude (" + info.lat2d->name + ", " + info.lon2d->name +
+                ") disagree with grid mapping " + var + ": node (row " +
+                std::to_string(at / grid->nx()) + ", column " + std::to_string(at % grid->nx()) +
+                ") lies " + buf + " from where " + grid->projection()->name() +
+                " puts it (more than a quarter of the grid spacing)"));
+      }
+    }
+    return std::move(*grid);
+  }
+  if (info.grid_kind == GridKind::curvilinear && info.lat2d && info.lon2d) {
+    try {
+      return CurvilinearGrid(info.ny, info.nx, info.lat2d->values, info.lon2d->values, earth);
+    } catch (const std::invalid_argument& e) {
+      throw InputError(input_message(info.path, info.lat2d->name, e.what()));
+    }
+  }
+  throw InputError(
+      input_message(info.path, info.variable, "not a projected or curvilinear grid (internal)"));
+}
 
 std::vector<Band> plan_bands(std::size_t ny, std::size_t rows) {
   if (rows == 0) throw std::invalid_argument("plan_bands: rows must be >= 1");
@@ -742,8 +948,10 @@ CurrentsSummary run_currents(const CurrentsJob& job) {
   ReaderOptions reader_options = job.reader;
   WriterSettings ws = job.writer;
   apply_environment(reader_options, ws);
+  reader_options.horizontal_grids = true;  // projected and curvilinear inputs too
   Reader reader(job.input, reader_options);
   const HeightInfo& info = reader.info();
+  if (info.grid_kind != GridKind::lat_lon) return run_currents_plane(job, reader, std::move(ws));
   Grid grid = [&] {
     try {
       return Grid(info.lat.values, info.lon.values);
@@ -773,7 +981,10 @@ CurrentsSummary run_currents(const CurrentsJob& job) {
   }
 
   Recycler::get().set_limit(job.memory_bytes);
-  Pipeline pipeline(job, reader, writer, kernel, kinematics, variables, rows, omp_get_max_threads());
+  const VelocityStepOf<GeostrophicKernel> velocity_step(kernel);
+  const KinematicsStepOf<KinematicsKernel> kinematics_step(kinematics);
+  Pipeline pipeline(job, reader, writer, velocity_step, kinematics_step, variables, rows,
+                    omp_get_max_threads());
   CurrentsSummary sum = pipeline.run();
   sum.read_path = reader.read_path();
   sum.write_path = writer.write_path();

@@ -775,8 +775,37 @@ Writer::Writer(const std::string& path, const HeightInfo& layout,
           layout.lon.name, "defining dimension");
 
   const int time_id = w.has_time ? w.define_coordinate(*layout.time, dimids[0]) : -1;
-  const int lat_id = w.define_coordinate(layout.lat, dimids[ndims - 2]);
-  const int lon_id = w.define_coordinate(layout.lon, dimids[ndims - 1]);
+  // A dimension without a coordinate variable (curvilinear grids) has name "".
+  const int lat_id =
+      layout.lat.name.empty() ? -1 : w.define_coordinate(layout.lat, dimids[ndims - 2]);
+  const int lon_id =
+      layout.lon.name.empty() ? -1 : w.define_coordinate(layout.lon, dimids[ndims - 1]);
+  // Projected and curvilinear grids (docs/projected.md): the grid mapping
+  // variable (scalar NC_INT with its attributes, CF 5.6) and the 2-D
+  // auxiliary latitude/longitude (NC_DOUBLE on the grid dimensions, CF 5.2).
+  int mapping_id = -1;
+  if (layout.grid_mapping_var) {
+    const AuxVar& g = *layout.grid_mapping_var;
+    w.check(nc_def_var(w.ncid, g.name.c_str(), NC_INT, 0, nullptr, &mapping_id), g.name,
+            "defining the grid mapping variable");
+    for (const Attribute& a : g.attrs)
+      if (!reserved_attribute(a.name) && !packing_attribute(a.name))
+        w.put_attribute(mapping_id, g.name, a);
+  }
+  const auto define_aux = [&](const std::optional<AuxVar>& aux) {
+    if (!aux) return -1;
+    if (aux->values.size() != w.ny * w.nx)
+      w.fail(aux->name, "2-D coordinate does not match the grid");
+    int id = -1;
+    w.check(nc_def_var(w.ncid, aux->name.c_str(), NC_DOUBLE, 2, dimids + ndims - 2, &id), aux->name,
+            "defining auxiliary coordinate");
+    for (const Attribute& a : aux->attrs)
+      if (!reserved_attribute(a.name) && !packing_attribute(a.name))
+        w.put_attribute(id, aux->name, a);
+    return id;
+  };
+  const int lat2d_id = define_aux(layout.lat2d);
+  const int lon2d_id = define_aux(layout.lon2d);
 
   w.define_variables(variables, dimids, ndims, settings.significant_digits, settings.deflate);
 
@@ -793,8 +822,14 @@ Writer::Writer(const std::string& path, const HeightInfo& layout,
               "writing coordinate values");
   };
   if (w.has_time) put_coordinate(time_id, *layout.time);
-  put_coordinate(lat_id, layout.lat);
-  put_coordinate(lon_id, layout.lon);
+  if (lat_id >= 0) put_coordinate(lat_id, layout.lat);
+  if (lon_id >= 0) put_coordinate(lon_id, layout.lon);
+  if (lat2d_id >= 0)
+    w.check(nc_put_var_double(w.ncid, lat2d_id, layout.lat2d->values.data()), layout.lat2d->name,
+            "writing auxiliary coordinate values");
+  if (lon2d_id >= 0)
+    w.check(nc_put_var_double(w.ncid, lon2d_id, layout.lon2d->values.data()), layout.lon2d->name,
+            "writing auxiliary coordinate values");
 
   w.codec = settings.codec;
   if (settings.chunk_writes == ChunkWrites::netcdf) {

@@ -5,8 +5,6 @@
 // python3-netCDF4/xarray; chunk bytes are compared with the ones HDF5's own
 // filters stored. Each pitfall of ../shared/CHUNK_IO.md has a case here
 // (numbers in the test names).
-#include "seatilt/chunkio.hpp"
-
 #include <doctest/doctest.h>
 #include <netcdf.h>
 #include <unistd.h>
@@ -22,6 +20,7 @@
 #include <string>
 #include <vector>
 
+#include "seatilt/chunkio.hpp"
 #include "seatilt/error.hpp"
 #include "seatilt/reader.hpp"
 #include "seatilt/writer.hpp"
@@ -47,7 +46,8 @@ struct TempDir {
 /// Deterministic test value of cell (t, j, i), not smooth (like real outputs
 /// the low mantissa bytes vary), exactly representable as float.
 float value(std::size_t t, std::size_t j, std::size_t i) {
-  return static_cast<float>(std::sin(0.37 * static_cast<double>(i) + 0.11 * static_cast<double>(j * j) +
+  return static_cast<float>(std::sin(0.37 * static_cast<double>(i) +
+                                     0.11 * static_cast<double>(j * j) +
                                      1.3 * static_cast<double>(t)));
 }
 
@@ -57,7 +57,7 @@ struct VarSpec {
   bool unlimited = true;
   std::size_t nt = 2, ny = 12, nx = 17;
   std::vector<std::size_t> chunk = {1, 5, 7};  // empty = contiguous
-  int deflate = 1;                              // -1 = no deflate filter
+  int deflate = 1;                             // -1 = no deflate filter
   bool shuffle = true;
   bool fletcher32 = false;
   int endian = NC_ENDIAN_NATIVE;
@@ -166,7 +166,8 @@ bool same_bits(const std::vector<double>& a, const std::vector<double>& b) {
 
 /// Full chunk (machine order) at OFFSET of a float (t, y, x) array VALUES,
 /// padded with FILL outside the extent.
-std::vector<unsigned char> padded_chunk(const std::vector<float>& values, const std::vector<std::size_t>& dims,
+std::vector<unsigned char> padded_chunk(const std::vector<float>& values,
+                                        const std::vector<std::size_t>& dims,
                                         const std::vector<std::size_t>& chunk,
                                         const std::vector<std::size_t>& offset, float fill) {
   std::vector<float> c(chunk[0] * chunk[1] * chunk[2], fill);
@@ -214,7 +215,9 @@ TEST_CASE("shuffle follows the HDF5 byte layout") {
   CHECK(s == std::vector<unsigned char>{3, 2, 1, 0, 7, 6, 5, 4, 11, 10, 9, 8});
 }
 
-TEST_CASE("pitfall 3: chunks built for the shape read from the file, edge chunks padded; zlib chunks equal HDF5's") {
+TEST_CASE(
+    "pitfall 3: chunks built for the shape read from the file, edge chunks padded; zlib chunks "
+    "equal HDF5's") {
   TempDir tmp;
   const std::string path = tmp.file("plain.nc");
   VarSpec spec;  // (2, 12, 17) in chunks (1, 5, 7): edge chunks in both dimensions
@@ -462,8 +465,8 @@ TEST_CASE("overlapping fetches decode each chunk once, in fetch order, on other 
   make_file(path, spec);
   Reader r(path, ReaderOptions{});
   FetchedRows a, b;
-  r.fetch_rows(0, 0, 14, a);   // chunk rows 0 and 1
-  r.fetch_rows(0, 8, 14, b);   // chunk rows 0..2: only row 2 is new
+  r.fetch_rows(0, 0, 14, a);  // chunk rows 0 and 1
+  r.fetch_rows(0, 8, 14, b);  // chunk rows 0..2: only row 2 is new
   CHECK(a.tasks() == 2);
   CHECK(b.tasks() == 1);
   for (std::size_t k = 0; k < a.tasks(); ++k) a.run_task(k);
@@ -515,7 +518,8 @@ HeightInfo layout(std::size_t nt, std::size_t ny, std::size_t nx) {
   h.nt = nt;
   h.lat.name = h.lat.dim = "lat";
   h.lat.nc_type = NC_DOUBLE;
-  for (std::size_t j = 0; j < ny; ++j) h.lat.values.push_back(-60.0 + 0.25 * static_cast<double>(j));
+  for (std::size_t j = 0; j < ny; ++j)
+    h.lat.values.push_back(-60.0 + 0.25 * static_cast<double>(j));
   h.lon.name = h.lon.dim = "lon";
   h.lon.nc_type = NC_DOUBLE;
   for (std::size_t i = 0; i < nx; ++i) h.lon.values.push_back(0.25 * static_cast<double>(i));
@@ -543,9 +547,8 @@ HeightInfo layout(std::size_t nt, std::size_t ny, std::size_t nx) {
 /// flags "q", in bands of BAND rows (written var by var, rows interleaved).
 void write_file(const std::string& path, const HeightInfo& lay, WriterSettings s, std::size_t band,
                 std::string* how = nullptr) {
-  const std::vector<OutputVariable> vars = {{"a", OutputType::float32, {}},
-                                            {"b", OutputType::float32, {}},
-                                            {"q", OutputType::flag8, {}}};
+  const std::vector<OutputVariable> vars = {
+      {"a", OutputType::float32, {}}, {"b", OutputType::float32, {}}, {"q", OutputType::flag8, {}}};
   Writer w(path, lay, vars, s);
   if (how != nullptr) *how = w.write_path();
   const std::size_t ny = lay.ny, nx = lay.nx;
@@ -595,7 +598,8 @@ std::string header(const std::string& path) {
 
 }  // namespace
 
-TEST_CASE("direct chunk writes equal netCDF-C writes: values, ncdump -h -s, netCDF4-python, xarray") {
+TEST_CASE(
+    "direct chunk writes equal netCDF-C writes: values, ncdump -h -s, netCDF4-python, xarray") {
   TempDir tmp;
   struct Case {
     std::size_t nt, ny, nx, band;
@@ -631,7 +635,8 @@ TEST_CASE("direct chunk writes equal netCDF-C writes: values, ncdump -h -s, netC
       CHECK(read_bytes(direct, var) == read_bytes(plain, var));
     }
     if (c.ny * c.nx < 2000) {  // whole text dumps of the small cases
-      const std::string dump_d = run("ncdump '" + direct + "'"), dump_p = run("ncdump '" + plain + "'");
+      const std::string dump_d = run("ncdump '" + direct + "'"),
+                        dump_p = run("ncdump '" + plain + "'");
       CHECK(dump_d.substr(dump_d.find('\n')) == dump_p.substr(dump_p.find('\n')));
     }
     // netCDF4-python (raw values) and xarray (decoded, fill -> NaN) see the
@@ -643,7 +648,8 @@ TEST_CASE("direct chunk writes equal netCDF-C writes: values, ncdump -h -s, netC
         "a.set_auto_maskandscale(False); b.set_auto_maskandscale(False)\n"
         "ok = all(a[v][:].tobytes() == b[v][:].tobytes() for v in ('a', 'b', 'q'))\n"
         "x, y = xr.open_dataset(sys.argv[1]), xr.open_dataset(sys.argv[2])\n"
-        "ok = ok and all(np.array_equal(x[v].values, y[v].values, equal_nan=True) for v in ('a', 'b', 'q'))\n"
+        "ok = ok and all(np.array_equal(x[v].values, y[v].values, equal_nan=True) for v in ('a', "
+        "'b', 'q'))\n"
         "ok = ok and int(np.isnan(x['a'].values).sum()) > 0\n"
         "print('same' if ok else 'different')\n";
     const std::string script = tmp.file("cmp.py");
@@ -664,8 +670,8 @@ TEST_CASE("pitfalls 6 and 7: attributes after direct writes, rows written twice,
     w.write_rows(0, 0, 0, f);
     w.set_global_text("note", "between writes");  // netCDF-C reopens the file
     for (double& v : f.data) v = 2.0;
-    w.write_rows(0, 0, 5, Field(3, 30, 2.0));     // rows 5..7 again: read back, rewritten
-    w.write_rows(0, 1, 0, Field(4, 30, 3.0));     // step 1: rows 4..19 never written
+    w.write_rows(0, 0, 5, Field(3, 30, 2.0));  // rows 5..7 again: read back, rewritten
+    w.write_rows(0, 1, 0, Field(4, 30, 3.0));  // step 1: rows 4..19 never written
     w.commit();
   }
   int nc = 0, v = 0;

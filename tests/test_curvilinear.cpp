@@ -3,15 +3,13 @@
 // (diagnostics.hpp). Reference values: GeographicLib 2.1 (an independent
 // implementation of the projections and of geodesics), REFERENCES.md §2, §4,
 // §6, §7, and the closed-form analytic eddy of tests/analytic.hpp.
-#include "seatilt/grid.hpp"
+#include <doctest/doctest.h>
 
 #include <GeographicLib/Constants.hpp>
 #include <GeographicLib/Geodesic.hpp>
 #include <GeographicLib/LambertConformalConic.hpp>
 #include <GeographicLib/PolarStereographic.hpp>
 #include <GeographicLib/TransverseMercator.hpp>
-#include <doctest/doctest.h>
-
 #include <cmath>
 #include <stdexcept>
 #include <string>
@@ -19,6 +17,7 @@
 
 #include "analytic.hpp"
 #include "seatilt/diagnostics.hpp"
+#include "seatilt/grid.hpp"
 #include "seatilt/kernel.hpp"
 
 using namespace seatilt;
@@ -165,13 +164,16 @@ GridMapping south_mapping() {
 TEST_CASE("Ellipsoid radii agree with the earth models and REFERENCES.md §4") {
   const Ellipsoid w = ellipsoid_of(EarthModel::wgs84), s = ellipsoid_of(EarthModel::sphere);
   for (double lat : {-80.0, -30.0, 0.0, 45.0, 89.0}) {
-    CHECK(meridional_radius(w, lat * deg) == doctest::Approx(meridional_radius(EarthModel::wgs84, lat * deg)).epsilon(1e-15));
-    CHECK(prime_vertical_radius(w, lat * deg) == doctest::Approx(prime_vertical_radius(EarthModel::wgs84, lat * deg)).epsilon(1e-15));
+    CHECK(meridional_radius(w, lat * deg) ==
+          doctest::Approx(meridional_radius(EarthModel::wgs84, lat * deg)).epsilon(1e-15));
+    CHECK(prime_vertical_radius(w, lat * deg) ==
+          doctest::Approx(prime_vertical_radius(EarthModel::wgs84, lat * deg)).epsilon(1e-15));
     CHECK(meridional_radius(s, lat * deg) == earth::mean_radius);
   }
   // Per degree at 45 N: dy 111131.777 m, dx 78846.835 m (REFERENCES.md §4, computed)
   CHECK(meridional_radius(w, 45 * deg) * deg == doctest::Approx(111131.777).epsilon(1e-8));
-  CHECK(prime_vertical_radius(w, 45 * deg) * std::cos(45 * deg) * deg == doctest::Approx(78846.835).epsilon(1e-8));
+  CHECK(prime_vertical_radius(w, 45 * deg) * std::cos(45 * deg) * deg ==
+        doctest::Approx(78846.835).epsilon(1e-8));
 }
 
 TEST_CASE("Polar stereographic north and south against GeographicLib") {
@@ -199,9 +201,10 @@ TEST_CASE("Polar stereographic north and south against GeographicLib") {
         const ProjectionFactors fa = p.factors(x, y);
         CHECK(fa.lat_deg == doctest::Approx(lat).epsilon(1e-12));
         CHECK(std::remainder(fa.lon_deg - lon, 360.0) == doctest::Approx(0).epsilon(1e-9));
-        CHECK(fa.parallel_scale == doctest::Approx(k).epsilon(1e-9));   // conformal: h = k
+        CHECK(fa.parallel_scale == doctest::Approx(k).epsilon(1e-9));  // conformal: h = k
         CHECK(fa.meridional_scale == doctest::Approx(k).epsilon(1e-9));
-        CHECK(std::remainder(fa.convergence_deg - gamma, 360.0) == doctest::Approx(0).epsilon(1e-7));
+        CHECK(std::remainder(fa.convergence_deg - gamma, 360.0) ==
+              doctest::Approx(0).epsilon(1e-7));
       }
   }
   // REFERENCES.md §7: polar stereographic (lat_0 90, lon_0 -45) at (0 E, 70 N): gamma = 45 deg.
@@ -214,11 +217,12 @@ TEST_CASE("Polar stereographic north and south against GeographicLib") {
 }
 
 TEST_CASE("Transverse Mercator: UTM zone 31 check value (REFERENCES.md §7)") {
-  const GridMapping m = mapping("transverse_mercator", {{"longitude_of_central_meridian", {3.0}},
-                                                        {"latitude_of_projection_origin", {0.0}},
-                                                        {"scale_factor_at_central_meridian", {0.9996}},
-                                                        {"false_easting", {500000.0}},
-                                                        {"false_northing", {0.0}}});
+  const GridMapping m =
+      mapping("transverse_mercator", {{"longitude_of_central_meridian", {3.0}},
+                                      {"latitude_of_projection_origin", {0.0}},
+                                      {"scale_factor_at_central_meridian", {0.9996}},
+                                      {"false_easting", {500000.0}},
+                                      {"false_northing", {0.0}}});
   Projection p(m);
   double x = 0, y = 0;
   p.forward(45, 5, x, y);
@@ -236,9 +240,10 @@ TEST_CASE("Transverse Mercator: UTM zone 31 check value (REFERENCES.md §7)") {
 }
 
 TEST_CASE("Lambert conformal conic against GeographicLib") {
-  const GridMapping m = mapping("lambert_conformal_conic", {{"standard_parallel", {60.0, 30.0}},
-                                                            {"longitude_of_central_meridian", {10.0}},
-                                                            {"latitude_of_projection_origin", {45.0}}});
+  const GridMapping m =
+      mapping("lambert_conformal_conic", {{"standard_parallel", {60.0, 30.0}},
+                                          {"longitude_of_central_meridian", {10.0}},
+                                          {"latitude_of_projection_origin", {45.0}}});
   Projection p(m);
   GeographicLib::LambertConformalConic lcc(GeographicLib::Constants::WGS84_a(),
                                            GeographicLib::Constants::WGS84_f(), 60, 30, 1);
@@ -301,10 +306,11 @@ TEST_CASE("Grid mapping errors name the problem") {
   w.variable = "crs";
   w.texts["crs_wkt"] = "PROJCRS[nonsense";
   refuses(w, "crs_wkt is not a CRS PROJ can read");
-  w.texts["crs_wkt"] = "GEOGCRS[\"WGS 84\",DATUM[\"World Geodetic System 1984\",ELLIPSOID[\"WGS 84\","
-                       "6378137,298.257223563]],CS[ellipsoidal,2],AXIS[\"latitude\",north,"
-                       "ANGLEUNIT[\"degree\",0.0174532925199433]],AXIS[\"longitude\",east,"
-                       "ANGLEUNIT[\"degree\",0.0174532925199433]]]";
+  w.texts["crs_wkt"] =
+      "GEOGCRS[\"WGS 84\",DATUM[\"World Geodetic System 1984\",ELLIPSOID[\"WGS 84\","
+      "6378137,298.257223563]],CS[ellipsoidal,2],AXIS[\"latitude\",north,"
+      "ANGLEUNIT[\"degree\",0.0174532925199433]],AXIS[\"longitude\",east,"
+      "ANGLEUNIT[\"degree\",0.0174532925199433]]]";
   refuses(w, "not a projected CRS");
   refuses(GridMapping{}, "neither grid_mapping_name nor crs_wkt");
 }
@@ -385,7 +391,8 @@ TEST_CASE("2-D latitude/longitude: regular grid metric and geodesic distances") 
       const double phi = g.lat_deg(j, i) * deg;
       const DirectionalMetric& b = g.metric(j, i);
       const double tol = (j == 0 || i == 0 || j == ny - 1 || i == nx - 1) ? 1e-5 : 1e-9;
-      CHECK(b.e_c * prime_vertical_radius(w, phi) * std::cos(phi) * 0.25 * deg == doctest::Approx(1).epsilon(tol));
+      CHECK(b.e_c * prime_vertical_radius(w, phi) * std::cos(phi) * 0.25 * deg ==
+            doctest::Approx(1).epsilon(tol));
       CHECK(b.n_r * meridional_radius(w, phi) * 0.25 * deg == doctest::Approx(1).epsilon(tol));
       CHECK(std::fabs(b.e_r) * meridional_radius(w, phi) * 0.25 * deg < tol);
       CHECK(std::fabs(b.n_c) * meridional_radius(w, phi) * 0.25 * deg < tol);
@@ -406,10 +413,12 @@ TEST_CASE("2-D latitude/longitude: regular grid metric and geodesic distances") 
   const double det = b.e_c * b.n_r - b.e_r * b.n_c;
   const double ei = b.n_r / det, ni = -b.e_r / det, ej = -b.n_c / det, nj = b.e_c / det;
   double s = 0, a1 = 0, a2 = 0;
-  geod.Inverse(la2[j * nx + i - 1], lo2[j * nx + i - 1], la2[j * nx + i + 1], lo2[j * nx + i + 1], s, a1, a2);
+  geod.Inverse(la2[j * nx + i - 1], lo2[j * nx + i - 1], la2[j * nx + i + 1], lo2[j * nx + i + 1],
+               s, a1, a2);
   CHECK(std::hypot(ei, ni) == doctest::Approx(s / 2).epsilon(1e-6));
   CHECK(std::atan2(ei, ni) / deg == doctest::Approx((a1 + a2) / 2).epsilon(1e-5));
-  geod.Inverse(la2[(j - 1) * nx + i], lo2[(j - 1) * nx + i], la2[(j + 1) * nx + i], lo2[(j + 1) * nx + i], s, a1, a2);
+  geod.Inverse(la2[(j - 1) * nx + i], lo2[(j - 1) * nx + i], la2[(j + 1) * nx + i],
+               lo2[(j + 1) * nx + i], s, a1, a2);
   CHECK(std::hypot(ej, nj) == doctest::Approx(s / 2).epsilon(1e-6));
   CHECK(std::atan2(ej, nj) / deg == doctest::Approx((a1 + a2) / 2).epsilon(1e-5));
 }
@@ -463,7 +472,8 @@ TEST_CASE("Eastward jet: v = 0 and u = -(g/(f M)) A cos(phi) (rotation check)") 
     double lat, lon;
     int half;
   };
-  const Where cases[] = {{&north, 75, 30, 20}, {&north, 90, 0, 10}, {&south, -70, -60, 20}, {&laea, 60, -20, 20}};
+  const Where cases[] = {
+      {&north, 75, 30, 20}, {&north, 90, 0, 10}, {&south, -70, -60, 20}, {&laea, 60, -20, 20}};
   for (const Where& c : cases) {
     const CurvilinearGrid g = square_grid(*c.m, c.lat, c.lon, c.half, 10000);
     CurrentsOptions o;
@@ -480,8 +490,9 @@ TEST_CASE("Eastward jet: v = 0 and u = -(g/(f M)) A cos(phi) (rotation check)") 
         }
         if (fl != 0) continue;
         const double phi = g.lat_deg(j, i) * deg;
-        const double u = -earth::standard_gravity / (coriolis(g.lat_deg(j, i)) *
-                                                   meridional_radius(g.ellipsoid(), phi)) * A * std::cos(phi);
+        const double u = -earth::standard_gravity /
+                         (coriolis(g.lat_deg(j, i)) * meridional_radius(g.ellipsoid(), phi)) * A *
+                         std::cos(phi);
         vmax = std::max(vmax, std::fabs(r.v.at(j, i)) / std::fabs(u));
         urel = std::max(urel, std::fabs(r.u.at(j, i) / u - 1));
       }
@@ -498,7 +509,8 @@ TEST_CASE("Kinematics: zonal flow and solid-body rotation on a polar grid") {
   // and zeta = 2 Omega_s cos(angle to the axis).
   const CurvilinearGrid g = square_grid(on_sphere(nsidc_north()), 90, 0, 20, 20000);
   const double U = 0.3, R = earth::mean_radius, Om = 1e-6;
-  const double ax[3] = {std::cos(30 * deg) * std::cos(10 * deg), std::cos(30 * deg) * std::sin(10 * deg), std::sin(30 * deg)};
+  const double ax[3] = {std::cos(30 * deg) * std::cos(10 * deg),
+                        std::cos(30 * deg) * std::sin(10 * deg), std::sin(30 * deg)};
   for (int which = 0; which < 2; ++which) {
     Field u(g.ny(), g.nx()), v(g.ny(), g.nx());
     for (std::size_t j = 0; j < g.ny(); ++j)
@@ -514,15 +526,18 @@ TEST_CASE("Kinematics: zonal flow and solid-body rotation on a polar grid") {
         } else {
           // V = Om R (axis x r_hat), in east/north components
           const double rh[3] = {std::cos(p) * std::cos(l), std::cos(p) * std::sin(l), std::sin(p)};
-          const double V[3] = {Om * R * (ax[1] * rh[2] - ax[2] * rh[1]), Om * R * (ax[2] * rh[0] - ax[0] * rh[2]),
+          const double V[3] = {Om * R * (ax[1] * rh[2] - ax[2] * rh[1]),
+                               Om * R * (ax[2] * rh[0] - ax[0] * rh[2]),
                                Om * R * (ax[0] * rh[1] - ax[1] * rh[0])};
           u.at(j, i) = -std::sin(l) * V[0] + std::cos(l) * V[1];
-          v.at(j, i) = -std::sin(p) * std::cos(l) * V[0] - std::sin(p) * std::sin(l) * V[1] + std::cos(p) * V[2];
+          v.at(j, i) = -std::sin(p) * std::cos(l) * V[0] - std::sin(p) * std::sin(l) * V[1] +
+                       std::cos(p) * V[2];
         }
       }
     std::vector<std::uint8_t> flags(g.ny() * g.nx(), 0);
     Kinematics kin;
-    CurvilinearKinematicsKernel(g, 4, CoastMethod::one_sided).compute(u, v, 0, 0, g.ny(), kin, flags);
+    CurvilinearKinematicsKernel(g, 4, CoastMethod::one_sided)
+        .compute(u, v, 0, 0, g.ny(), kin, flags);
     double zerr = 0, smax = 0, zref = 0;
     for (std::size_t j = 0; j < g.ny(); ++j)
       for (std::size_t i = 0; i < g.nx(); ++i) {
@@ -550,7 +565,8 @@ TEST_CASE("Equatorial beta plane on a transverse Mercator grid (REFERENCES.md §
                                                   {"earth_radius", {earth::mean_radius}}});
   const CurvilinearGrid g(m, axis_around(0, 30, 10000), axis_around(0, 30, 10000));
   const double A = 0.1, L = 300e3, R = earth::mean_radius;
-  const Field eta = sample(g, [&](double p, double) { return A * std::exp(-(R * p) * (R * p) / (L * L)); });
+  const Field eta =
+      sample(g, [&](double p, double) { return A * std::exp(-(R * p) * (R * p) / (L * L)); });
   for (EquatorMethod method : {EquatorMethod::beta, EquatorMethod::blend, EquatorMethod::mask}) {
     CurrentsOptions o;
     o.equator = method;
@@ -640,6 +656,7 @@ TEST_CASE("Descending y (rows from the top, as many polar products store them)")
       CHECK(b.flags[jd * nx + i] == a.flags[j * nx + i]);
       CHECK(b.u.at(jd, i) == doctest::Approx(a.u.at(j, i)).epsilon(1e-12).scale(1e-3));
       CHECK(b.v.at(jd, i) == doctest::Approx(a.v.at(j, i)).epsilon(1e-12).scale(1e-3));
-      CHECK(b.kin.vorticity.at(jd, i) == doctest::Approx(a.kin.vorticity.at(j, i)).epsilon(1e-10).scale(1e-8));
+      CHECK(b.kin.vorticity.at(jd, i) ==
+            doctest::Approx(a.kin.vorticity.at(j, i)).epsilon(1e-10).scale(1e-8));
     }
 }

@@ -14,6 +14,7 @@
 #include <vector>
 
 #include "analytic.hpp"
+#include "seatilt/chunkio.hpp"
 #include "seatilt/error.hpp"
 #include "seatilt/product.hpp"
 
@@ -224,6 +225,31 @@ TEST_CASE("run_currents: a run abandoned between bands leaves nothing at the out
   std::size_t files = 0;
   for (const auto& e : fs::directory_iterator(tmp.path)) { (void)e; ++files; }
   CHECK(files == 1);  // only the input
+}
+
+TEST_CASE("run_currents: a corrupt input chunk stops the pipeline: InputError, no output") {
+  TempDir tmp;
+  const std::string in = (tmp.path / "eddies.nc").string();
+  make_input(in, 120, 90, 2, true);
+  {
+    chunkio::H5File file(in, true);
+    chunkio::H5Chunked ds(file, "zeta_surface");
+    const std::vector<unsigned char> junk(100, 0x42);
+    ds.write_chunk({1, 64, 0}, junk.data(), junk.size());
+    file.close();
+  }
+  for (int threads : {1, 2}) {
+    omp_set_num_threads(threads);
+    CurrentsJob job;
+    job.input = in;
+    job.output = (tmp.path / "out.nc").string();
+    job.fields = parse_field_list("all");
+    job.band_rows = 16;
+    CHECK_THROWS_AS(run_currents(job), InputError);
+    std::size_t files = 0;
+    for (const auto& e : fs::directory_iterator(tmp.path)) { (void)e; ++files; }
+    CHECK(files == 1);
+  }
 }
 
 TEST_CASE("run_currents: an all-fill step is an input error and leaves no output") {

@@ -87,12 +87,12 @@ struct ChunkFormat {
   std::vector<std::size_t> dims;   ///< current extent per dimension (elements)
   std::vector<std::size_t> chunk;  ///< chunk shape, same rank, every entry >= 1
   ElementType type = ElementType::f32;
-  bool swap = false;       ///< file byte order is not the machine's
-  bool shuffle = false;    ///< shuffle filter in the pipeline
-  bool deflate = false;    ///< deflate filter in the pipeline
-  int level = 0;           ///< deflate level 0..9 (when deflate)
-  unsigned shuffle_bit = 0;  ///< filter-mask bit of shuffle (1 << index), 0 when absent
-  unsigned deflate_bit = 0;  ///< filter-mask bit of deflate, 0 when absent
+  bool swap = false;                ///< file byte order is not the machine's
+  bool shuffle = false;             ///< shuffle filter in the pipeline
+  bool deflate = false;             ///< deflate filter in the pipeline
+  int level = 0;                    ///< deflate level 0..9 (when deflate)
+  unsigned shuffle_bit = 0;         ///< filter-mask bit of shuffle (1 << index), 0 when absent
+  unsigned deflate_bit = 0;         ///< filter-mask bit of deflate, 0 when absent
   std::vector<unsigned char> fill;  ///< one element, machine byte order
 
   [[nodiscard]] std::size_t elem_size() const { return element_size(type); }
@@ -126,7 +126,7 @@ void decode_chunk(const ChunkFormat& format, const unsigned char* data, std::siz
 
 /// An HDF5 file opened with the HDF5 library that netCDF-C links. Move-only.
 class H5File {
-public:
+ public:
   /// Opens PATH read-only or read-write. Throws std::runtime_error.
   H5File(const std::string& path, bool writable);
   ~H5File();
@@ -139,13 +139,13 @@ public:
   void close();
   [[nodiscard]] std::int64_t id() const { return id_; }
 
-private:
+ private:
   std::int64_t id_ = -1;
 };
 
 /// One chunked dataset of an open H5File, for raw chunk access. Move-only.
 class H5Chunked {
-public:
+ public:
   /// Opens dataset NAME (netCDF variable name; the "_nc4_non_coord_" prefix
   /// netCDF-C uses for clashing names is tried too) without a chunk cache.
   /// Throws std::runtime_error when it does not exist.
@@ -177,7 +177,7 @@ public:
   bool read_chunk(const std::vector<std::size_t>& offset, std::vector<unsigned char>& data,
                   unsigned& mask);
 
-private:
+ private:
   void read_format();
   std::string describe();  // fills format_; returns a problem or ""
   std::int64_t id_ = -1;
@@ -193,15 +193,15 @@ struct InputChunk {
   std::vector<std::size_t> offset;    ///< element offset of the chunk
   std::vector<unsigned char> stored;  ///< stored bytes until decoded
   unsigned mask = 0;
-  bool allocated = false;             ///< false: every value is the fill value
-  std::vector<unsigned char> data;    ///< inflated chunk, file byte order, after decoding
-  bool planes = false;                ///< data still shuffled (byte planes)
+  bool allocated = false;           ///< false: every value is the fill value
+  std::vector<unsigned char> data;  ///< inflated chunk, file byte order, after decoding
+  bool planes = false;              ///< data still shuffled (byte planes)
 };
 
 /// Rows [j0, j0 + nrows) of the last two dimensions of a dataset at fixed
 /// indices LEAD of the leading dimensions, as fetched raw (see RawInput).
 class RawRows {
-public:
+ public:
   /// Chunks this slab must decode (the others were decoded by earlier slabs).
   [[nodiscard]] std::size_t tasks() const { return pending_.size(); }
   /// Decodes pending chunk K; distinct K may run concurrently on any threads.
@@ -213,7 +213,7 @@ public:
   void row_as_double(std::size_t r, double* out) const;
   [[nodiscard]] std::size_t rows() const { return nrows_; }
 
-private:
+ private:
   friend class RawInput;
   const ChunkFormat* format_ = nullptr;
   std::size_t j0_ = 0, nrows_ = 0, nx_ = 0;
@@ -227,7 +227,7 @@ private:
 /// one thread) and keeps the chunks of the last slab so that overlapping
 /// slabs (halo rows) decode each chunk once. Move-only.
 class RawInput {
-public:
+ public:
   /// Opens variable NAME of PATH read-only (a read-only netCDF handle on the
   /// same file may stay open). Returns nullptr and sets WHY when the variable
   /// cannot be read raw (not HDF5, contiguous, other filters, unsupported
@@ -240,10 +240,9 @@ public:
   /// dimension), every column (last dimension), at leading indices LEAD
   /// (rank - 2 values). Slabs must be decoded in the order they are fetched.
   /// Throws std::runtime_error on an HDF5 failure.
-  void fetch(const std::vector<std::size_t>& lead, std::size_t j0, std::size_t nrows,
-             RawRows& out);
+  void fetch(const std::vector<std::size_t>& lead, std::size_t j0, std::size_t nrows, RawRows& out);
 
-private:
+ private:
   RawInput(H5File file, H5Chunked ds) : file_(std::move(file)), ds_(std::move(ds)) {}
   H5File file_;
   H5Chunked ds_;

@@ -200,7 +200,7 @@ struct ProjectionFactors {
   double parallel_scale = 0;        ///< k, along the parallel (1)
   double areal_scale = 0;           ///< h k sin(theta') (1)
   double angular_distortion = 0;    ///< omega (degrees)
-  double convergence_deg = 0;       ///< meridian convergence gamma = -atan2(dx/dphi, dy/dphi) (degrees)
+  double convergence_deg = 0;       ///< gamma = -atan2(dx/dphi, dy/dphi) (degrees)
 };
 
 /// A map projection built with PROJ from a CF grid mapping.

@@ -193,11 +193,14 @@ public:
   /// ORDER 2, 4 or 6; FALLBACK false refuses any stencil but the full centred one.
   CurvilinearDifferentiator(const CurvilinearGrid& grid, int order, bool fallback);
   /// d f / d c along row j at column i (per unit of the column coordinate).
-  [[nodiscard]] Derivative d_col(const Field& band, std::size_t b0, std::size_t j, std::size_t i) const;
+  [[nodiscard]] Derivative d_col(const Field& band, std::size_t b0, std::size_t j,
+                                 std::size_t i) const;
   /// d f / d r along column i at row j (per unit of the row coordinate).
-  [[nodiscard]] Derivative d_row(const Field& band, std::size_t b0, std::size_t j, std::size_t i) const;
+  [[nodiscard]] Derivative d_row(const Field& band, std::size_t b0, std::size_t j,
+                                 std::size_t i) const;
   /// d f / de and d f / dn (per metre) at node (j, i); failed at a pole node.
-  [[nodiscard]] Gradient gradient(const Field& band, std::size_t b0, std::size_t j, std::size_t i) const;
+  [[nodiscard]] Gradient gradient(const Field& band, std::size_t b0, std::size_t j,
+                                  std::size_t i) const;
   /// Half-width of the widest stencil in rows (>= 2: one-sided needs two neighbours).
   [[nodiscard]] int reach() const { return hw_ < 2 ? 2 : hw_; }
   [[nodiscard]] const CurvilinearGrid& grid() const { return grid_; }
@@ -224,8 +227,8 @@ public:
   /// missing) holding global rows [e0, e0 + eta.ny) that cover the halo within
   /// the grid (std::logic_error otherwise). Rows in parallel with OpenMP; the
   /// result does not depend on the thread count or the band layout.
-  void compute(const Field& eta, std::size_t e0, std::size_t j0, std::size_t n, Field& u,
-               Field& v, std::vector<std::uint8_t>& flags) const;
+  void compute(const Field& eta, std::size_t e0, std::size_t j0, std::size_t n, Field& u, Field& v,
+               std::vector<std::uint8_t>& flags) const;
 
 private:
   enum Mode : std::uint8_t { f_plane, beta_plane, blend, masked_equator, pole };

@@ -24,6 +24,16 @@
 // treated as an anomaly when its name or long_name says "anomaly"/"sla",
 // otherwise as absolute; the reason is recorded in HeightInfo::kind_reason.
 //
+// Projected and curvilinear grids (ReaderOptions::horizontal_grids; see
+// docs/projected.md): without 1-D latitude/longitude, the last two dimensions
+// may carry 1-D projection x/y (standard_name projection_x/y_coordinate, or
+// axis X/Y with a length unit; converted to metres) with the variable's
+// grid_mapping attribute naming a grid mapping variable (also the CF 1.7
+// extended form "crs: x y"), or 2-D latitude/longitude on (rows, columns)
+// named by its coordinates attribute. x/y without a grid mapping and without
+// 2-D latitude/longitude, a grid_mapping naming no variable, or x and y in
+// different units are InputErrors.
+//
 // Coordinates: a 1-D variable is latitude when its units are degrees_north
 // (or degree_north, degree_N, degrees_N, degreeN, degreesN), or its
 // standard_name is "latitude", or axis="Y" with degree units; likewise
@@ -71,6 +81,23 @@ struct CoordVar {
   std::vector<Attribute> attrs;
 };
 
+/// A variable reproduced in the output besides the coordinates: a CF grid
+/// mapping variable (scalar, no values) or a 2-D auxiliary coordinate.
+struct AuxVar {
+  std::string name;
+  int nc_type = 0;  ///< storage type in the file
+  std::vector<double>
+      values;  ///< unpacked, rows x columns row-major, NaN missing; empty for a grid mapping
+  std::vector<Attribute> attrs;
+};
+
+/// How the horizontal position of a cell is given (docs/projected.md).
+enum class GridKind {
+  lat_lon,      ///< 1-D latitude and longitude coordinates
+  projected,    ///< 1-D projection x/y with a CF grid mapping (CF 1.12 5.6, Appendix F)
+  curvilinear,  ///< 2-D latitude/longitude named by the coordinates attribute (CF 5.2)
+};
+
 /// Whether heights are absolute (above the geoid) or an anomaly (above a mean sea level).
 enum class HeightKind { absolute, anomaly };
 
@@ -113,12 +140,26 @@ struct HeightInfo {
   std::size_t nt = 1, ny = 0, nx = 0;  ///< nt = 1 without time
   std::vector<Attribute> global_attrs;
   std::vector<Attribute> variable_attrs;  ///< of the height variable
+
+  // ---- projected and curvilinear grids (only with ReaderOptions::horizontal_grids) ----
+  // For these, lat holds the row (y) and lon the column (x) coordinate
+  // variable as in the file; a dimension without one gets name "" and values
+  // 0..n-1 (the writer then defines the dimension only).
+  GridKind grid_kind = GridKind::lat_lon;
+  std::vector<double> x_m, y_m;            ///< projected: x (nx) and y (ny) in metres
+  std::optional<AuxVar> grid_mapping_var;  ///< projected: the grid mapping variable
+  GridMapping grid_mapping;  ///< projected: its attributes (grid.hpp), unit_m from x's units
+  std::optional<AuxVar> lat2d, lon2d;  ///< 2-D latitude/longitude (degrees) when the file has them
 };
 
 /// Options given to the reader from the command line or a job file.
 struct ReaderOptions {
   std::string variable;  ///< --variable ("" = detect)
   std::string units;     ///< --units ("" = from the file)
+  /// Accept projected x/y grids with a CF grid_mapping and curvilinear grids
+  /// with 2-D latitude/longitude when no 1-D latitude/longitude exist
+  /// (HeightInfo::grid_kind); false refuses them as before.
+  bool horizontal_grids = false;
   /// Read netCDF-4 chunks raw (H5Dread_chunk) and decompress them in seatilt,
   /// in parallel, where the layout allows (chunked; filters [shuffle]
   /// [deflate] or none; integer or IEEE float storage); false = always

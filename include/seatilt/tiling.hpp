@@ -5,7 +5,9 @@
 // height chosen from a memory budget, the threads, and the pipeline
 // reader -> kernel -> diagnostics -> writer over time steps and bands, so that
 // only a few bands of every field are in memory at once. Numbers flow one
-// way; this module only moves rows between the other modules.
+// way; this module only moves rows between the other modules. Projected and
+// curvilinear inputs (docs/projected.md) run through the same pipeline with
+// the Curvilinear kernels on a CurvilinearGrid built once per input.
 //
 // Threads: the thread that calls run_currents makes every netCDF-C and HDF5
 // call (netCDF-C is not thread-safe; CHUNK_IO.md pitfall 8): it fetches the
@@ -89,8 +91,21 @@ struct CurrentsSummary {
   std::string write_path;  ///< Writer::write_path(), e.g. "direct chunk writes (libdeflate)"
 };
 
-/// Runs JOB. Throws InputError (bad input, all-fill time step), OutputError
-/// (cannot write; nothing left at the output path), UsageError (bad options).
+/// Builds the grid of a projected or curvilinear input (INFO.grid_kind not
+/// lat_lon; docs/projected.md): PROJ node positions and metrics for x/y with a
+/// grid mapping (the CRS's ellipsoid), or the metric of 2-D latitude/longitude
+/// on the figure of EARTH. For a projected input that also has 2-D
+/// latitude/longitude, checks that they lie within a quarter of a grid
+/// spacing of the projection's node positions (NaN ones are skipped). Throws
+/// InputError "FILE: variable V: problem" (V the grid mapping variable or the
+/// 2-D coordinate) for an unknown or inconsistent grid mapping, nodes outside
+/// the projection, disagreeing or degenerate coordinates.
+CurvilinearGrid make_curvilinear_grid(const HeightInfo& info, EarthModel earth);
+
+/// Runs JOB (any GridKind: projected and curvilinear inputs run through the
+/// Curvilinear kernels and write x/y, the grid mapping and 2-D latitude/
+/// longitude as docs/projected.md describes). Throws InputError (bad input, all-fill time step),
+/// OutputError (cannot write; nothing left at the output path), UsageError (bad options).
 CurrentsSummary run_currents(const CurrentsJob& job);
 
 }  // namespace seatilt

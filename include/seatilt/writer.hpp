@@ -96,6 +96,11 @@ struct EncodedRows {
 //    becomes NC_DOUBLE; coordinate attributes copied except packing and
 //    missing-data ones (_FillValue, scale_factor, add_offset, missing_value,
 //    valid_*, _Unsigned);
+//  - projected and curvilinear layouts (HeightInfo::grid_kind): a coordinate
+//    variable with an empty name is left out (the dimension stays); the grid
+//    mapping variable is copied as a scalar NC_INT with its attributes; 2-D
+//    latitude/longitude (lat2d, lon2d) become NC_DOUBLE auxiliary coordinates
+//    on the grid dimensions with their attributes (docs/projected.md);
 //  - every output variable chunked (1, chunk_rows, nx) or (chunk_rows, nx),
 //    chunk_rows = clamp(ceil(262144 / nx), 1, ny) (~1 MiB float32 chunks),
 //    deflate + shuffle when deflate > 0, an HDF5 chunk cache of two chunks
