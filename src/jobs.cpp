@@ -296,41 +296,23 @@ void read_currents(const Source& s, const toml::table& t, JobFile& job) {
         validate(o);
       } else if (key == "equator") {
         const std::string x = get_string(s, v, dotted);
-        if (x == "mask")
-          o.equator = EquatorMethod::mask;
-        else if (x == "beta")
-          o.equator = EquatorMethod::beta;
-        else if (x == "blend")
-          o.equator = EquatorMethod::blend;
-        else
+        if (!parse_equator(x, o.equator))
           s.fail(v, dotted, "'" + x + "' is not one of mask, beta, blend");
       } else if (key == "equator_band") {
         o.equator_band_deg = get_number(s, v, dotted);
         validate(o);
       } else if (key == "coast") {
         const std::string x = get_string(s, v, dotted);
-        if (x == "one-sided")
-          o.coast = CoastMethod::one_sided;
-        else if (x == "mask")
-          o.coast = CoastMethod::mask;
-        else
+        if (!parse_coast(x, o.coast))
           s.fail(v, dotted, "'" + x + "' is not one of one-sided, mask");
       } else if (key == "earth") {
         const std::string x = get_string(s, v, dotted);
-        if (x == "sphere")
-          o.earth = EarthModel::sphere;
-        else if (x == "wgs84")
-          o.earth = EarthModel::wgs84;
-        else
+        if (!parse_earth(x, o.earth))
           s.fail(v, dotted, "'" + x + "' is not one of sphere, wgs84");
       } else if (key == "gravity") {
         if (v.is_string()) {
           const std::string x = v.as_string()->get();
-          if (x == "standard")
-            o.gravity = GravityModel::standard;
-          else if (x == "wgs84")
-            o.gravity = GravityModel::wgs84;
-          else
+          if (!parse_gravity_name(x, o.gravity))
             s.fail(v, dotted, "'" + x + "' is not standard, wgs84 or a number in m s-2");
         } else {
           if (!v.is_number())

@@ -164,6 +164,27 @@ const char* to_string(EquatorMethod m) {
 const char* to_string(CoastMethod m) { return m == CoastMethod::mask ? "mask" : "one-sided"; }
 const char* to_string(EarthModel m) { return m == EarthModel::sphere ? "sphere" : "wgs84"; }
 
+bool parse_equator(const std::string& text, EquatorMethod& out) {
+  for (EquatorMethod m : {EquatorMethod::mask, EquatorMethod::beta, EquatorMethod::blend})
+    if (text == to_string(m)) return out = m, true;
+  return false;
+}
+bool parse_coast(const std::string& text, CoastMethod& out) {
+  for (CoastMethod m : {CoastMethod::one_sided, CoastMethod::mask})
+    if (text == to_string(m)) return out = m, true;
+  return false;
+}
+bool parse_earth(const std::string& text, EarthModel& out) {
+  for (EarthModel m : {EarthModel::sphere, EarthModel::wgs84})
+    if (text == to_string(m)) return out = m, true;
+  return false;
+}
+bool parse_gravity_name(const std::string& text, GravityModel& out) {
+  if (text == "standard") return out = GravityModel::standard, true;
+  if (text == "wgs84") return out = GravityModel::wgs84, true;
+  return false;
+}
+
 std::string gravity_description(const CurrentsOptions& o) {
   switch (o.gravity) {
     case GravityModel::standard: return "standard 9.80665 m s-2";

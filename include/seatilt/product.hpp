@@ -53,4 +53,12 @@ const char* to_string(CoastMethod m);
 const char* to_string(EarthModel m);
 std::string gravity_description(const CurrentsOptions& o);
 
+/// Parse the option names written by to_string() (and "standard"/"wgs84" for
+/// gravity) into OUT; return false, leaving OUT alone, for any other text.
+/// Every command and the job-file parser share these, each wording its own error.
+bool parse_equator(const std::string& text, EquatorMethod& out);
+bool parse_coast(const std::string& text, CoastMethod& out);
+bool parse_earth(const std::string& text, EarthModel& out);
+bool parse_gravity_name(const std::string& text, GravityModel& out);
+
 }  // namespace seatilt

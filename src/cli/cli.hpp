@@ -16,6 +16,14 @@ namespace seatilt::cli {
 bool chatty();
 void set_verbose(bool on);
 
+/// Command-line values of the shared currents options; each throws UsageError
+/// "--OPTION: 'TEXT' is not one of ..." for anything else. GRAVITY takes
+/// "standard", "wgs84" or a number in m s-2 (GravityModel::constant).
+EquatorMethod equator_option(const std::string& text);
+CoastMethod coast_option(const std::string& text);
+EarthModel earth_option(const std::string& text);
+void gravity_option(const std::string& text, GravityModel& model, double& value);
+
 /// Prints "seatilt: error: MESSAGE" as one line on stderr.
 void print_error(const std::string& message);
 

@@ -41,32 +41,11 @@ struct ClimatologyArgs {
 CurrentsOptions resolve_options() {
   CurrentsOptions o;
   o.order = args.order;
-  bool found = false;
-  for (EquatorMethod m : {EquatorMethod::mask, EquatorMethod::beta, EquatorMethod::blend})
-    if (args.equator == to_string(m)) o.equator = m, found = true;
-  if (!found) throw UsageError("--equator: '" + args.equator + "' is not one of mask, beta, blend");
+  o.equator = equator_option(args.equator);
   o.equator_band_deg = args.band;
-  found = false;
-  for (CoastMethod m : {CoastMethod::one_sided, CoastMethod::mask})
-    if (args.coast == to_string(m)) o.coast = m, found = true;
-  if (!found) throw UsageError("--coast: '" + args.coast + "' is not one of one-sided, mask");
-  found = false;
-  for (EarthModel m : {EarthModel::sphere, EarthModel::wgs84})
-    if (args.earth == to_string(m)) o.earth = m, found = true;
-  if (!found) throw UsageError("--earth: '" + args.earth + "' is not one of sphere, wgs84");
-  if (args.gravity == "standard") {
-    o.gravity = GravityModel::standard;
-  } else if (args.gravity == "wgs84") {
-    o.gravity = GravityModel::wgs84;
-  } else {
-    char* end = nullptr;
-    const double g = std::strtod(args.gravity.c_str(), &end);
-    if (end == args.gravity.c_str() || *end != '\0')
-      throw UsageError("--gravity: '" + args.gravity +
-                       "' is not standard, wgs84 or a number in m s-2");
-    o.gravity = GravityModel::constant;
-    o.gravity_value = g;
-  }
+  o.coast = coast_option(args.coast);
+  o.earth = earth_option(args.earth);
+  gravity_option(args.gravity, o.gravity, o.gravity_value);
   validate(o);
   return o;
 }

@@ -61,30 +61,11 @@ bool same_file(const std::string& a, const std::string& b) {
 CurrentsOptions resolve_options() {
   CurrentsOptions o;
   o.order = args.order;
-  if (args.equator == "mask") o.equator = EquatorMethod::mask;
-  else if (args.equator == "beta") o.equator = EquatorMethod::beta;
-  else if (args.equator == "blend") o.equator = EquatorMethod::blend;
-  else throw UsageError("--equator: '" + args.equator + "' is not one of mask, beta, blend");
+  o.equator = equator_option(args.equator);
   o.equator_band_deg = args.band;
-  if (args.coast == "one-sided") o.coast = CoastMethod::one_sided;
-  else if (args.coast == "mask") o.coast = CoastMethod::mask;
-  else throw UsageError("--coast: '" + args.coast + "' is not one of one-sided, mask");
-  if (args.earth == "sphere") o.earth = EarthModel::sphere;
-  else if (args.earth == "wgs84") o.earth = EarthModel::wgs84;
-  else throw UsageError("--earth: '" + args.earth + "' is not one of sphere, wgs84");
-  if (args.gravity == "standard") {
-    o.gravity = GravityModel::standard;
-  } else if (args.gravity == "wgs84") {
-    o.gravity = GravityModel::wgs84;
-  } else {
-    char* end = nullptr;
-    const double g = std::strtod(args.gravity.c_str(), &end);
-    if (end == args.gravity.c_str() || *end != '\0')
-      throw UsageError("--gravity: '" + args.gravity +
-                       "' is not standard, wgs84 or a number in m s-2");
-    o.gravity = GravityModel::constant;
-    o.gravity_value = g;
-  }
+  o.coast = coast_option(args.coast);
+  o.earth = earth_option(args.earth);
+  gravity_option(args.gravity, o.gravity, o.gravity_value);
   validate(o);
   return o;
 }

@@ -4,11 +4,13 @@
 
 #include <algorithm>
 #include <cstdio>
+#include <cstdlib>
 #include <iostream>
 #include <string>
 
 #include "cli.hpp"
 #include "seatilt/error.hpp"
+#include "seatilt/product.hpp"
 #include "seatilt/version.hpp"
 
 namespace seatilt::cli {
@@ -44,6 +46,32 @@ bool register_command(const Command& command) {
   return true;
 }
 const std::vector<Command>& commands() { return registry(); }
+
+EquatorMethod equator_option(const std::string& text) {
+  EquatorMethod m{};
+  if (!parse_equator(text, m))
+    throw UsageError("--equator: '" + text + "' is not one of mask, beta, blend");
+  return m;
+}
+CoastMethod coast_option(const std::string& text) {
+  CoastMethod m{};
+  if (!parse_coast(text, m)) throw UsageError("--coast: '" + text + "' is not one of one-sided, mask");
+  return m;
+}
+EarthModel earth_option(const std::string& text) {
+  EarthModel m{};
+  if (!parse_earth(text, m)) throw UsageError("--earth: '" + text + "' is not one of sphere, wgs84");
+  return m;
+}
+void gravity_option(const std::string& text, GravityModel& model, double& value) {
+  if (parse_gravity_name(text, model)) return;
+  char* end = nullptr;
+  const double g = std::strtod(text.c_str(), &end);
+  if (end == text.c_str() || *end != '\0')
+    throw UsageError("--gravity: '" + text + "' is not standard, wgs84 or a number in m s-2");
+  model = GravityModel::constant;
+  value = g;
+}
 
 bool chatty() { return verbose_flag || isatty(STDERR_FILENO) != 0; }
 void set_verbose(bool on) { verbose_flag = on; }

@@ -54,24 +54,9 @@ ThermalOptions resolve_options() {
   o.order = pargs.order;
   o.equator_band_deg = pargs.band;
   o.rho0 = pargs.rho0;
-  if (pargs.coast == "one-sided") o.coast = CoastMethod::one_sided;
-  else if (pargs.coast == "mask") o.coast = CoastMethod::mask;
-  else throw UsageError("--coast: '" + pargs.coast + "' is not one of one-sided, mask");
-  if (pargs.earth == "sphere") o.earth = EarthModel::sphere;
-  else if (pargs.earth == "wgs84") o.earth = EarthModel::wgs84;
-  else throw UsageError("--earth: '" + pargs.earth + "' is not one of sphere, wgs84");
-  if (pargs.gravity == "standard") {
-    o.gravity = GravityModel::standard;
-  } else if (pargs.gravity == "wgs84") {
-    o.gravity = GravityModel::wgs84;
-  } else {
-    char* end = nullptr;
-    const double g = std::strtod(pargs.gravity.c_str(), &end);
-    if (end == pargs.gravity.c_str() || *end != '\0')
-      throw UsageError("--gravity: '" + pargs.gravity + "' is not standard, wgs84 or a number in m s-2");
-    o.gravity = GravityModel::constant;
-    o.gravity_value = g;
-  }
+  o.coast = coast_option(pargs.coast);
+  o.earth = earth_option(pargs.earth);
+  gravity_option(pargs.gravity, o.gravity, o.gravity_value);
   validate(o);
   return o;
 }

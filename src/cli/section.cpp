@@ -35,25 +35,8 @@ SectionOptions resolve_section_options(const CLI::App& c) {
     throw UsageError("--depth: must be a depth > 0 in m");
   o.depth_m = sargs.depth_m;
   o.equator_band_deg = sargs.band;
-  if (sargs.earth == "sphere")
-    o.earth = EarthModel::sphere;
-  else if (sargs.earth == "wgs84")
-    o.earth = EarthModel::wgs84;
-  else
-    throw UsageError("--earth: '" + sargs.earth + "' is not one of sphere, wgs84");
-  if (sargs.gravity == "standard") {
-    o.gravity = GravityModel::standard;
-  } else if (sargs.gravity == "wgs84") {
-    o.gravity = GravityModel::wgs84;
-  } else {
-    char* end = nullptr;
-    const double g = std::strtod(sargs.gravity.c_str(), &end);
-    if (end == sargs.gravity.c_str() || *end != '\0')
-      throw UsageError("--gravity: '" + sargs.gravity +
-                       "' is not standard, wgs84 or a number in m s-2");
-    o.gravity = GravityModel::constant;
-    o.gravity_value = g;
-  }
+  o.earth = earth_option(sargs.earth);
+  gravity_option(sargs.gravity, o.gravity, o.gravity_value);
   validate(o);
   return o;
 }
