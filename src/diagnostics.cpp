@@ -56,7 +56,7 @@ void KinematicsKernel::compute(const Field& u, const Field& v, std::size_t b0, s
     for (std::size_t i = 0; i < nx; ++i) {
       const double uc = ur[i], vc = vr[i];
       if (std::isnan(uc) || std::isnan(vc)) continue;
-      out.speed.at(k, i) = std::hypot(uc, vc);  // |u| = sqrt(u^2 + v^2)
+      out.speed.at(k, i) = std::sqrt(uc * uc + vc * vc);  // |u| = sqrt(u^2 + v^2) (no overflow: |u| << 1e150)
       const Derivative ul = diff_.d_lambda(u, b0, j, i), vl = diff_.d_lambda(v, b0, j, i);
       const Derivative up = diff_.d_phi(u, b0, j, i), vp = diff_.d_phi(v, b0, j, i);
       if (ul.status == Derivative::failed || vl.status == Derivative::failed ||
@@ -72,7 +72,7 @@ void KinematicsKernel::compute(const Field& u, const Field& v, std::size_t b0, s
       out.vorticity.at(k, i) = zeta;
       out.strain_normal.at(k, i) = sn;
       out.strain_shear.at(k, i) = ss;
-      out.strain.at(k, i) = std::hypot(sn, ss);
+      out.strain.at(k, i) = std::sqrt(sn * sn + ss * ss);  // sqrt(sn^2 + ss^2)
       out.okubo_weiss.at(k, i) = sn * sn + ss * ss - zeta * zeta;  // W = sn^2 + ss^2 - zeta^2
     }
   }
@@ -134,7 +134,7 @@ void CurvilinearKinematicsKernel::compute(const Field& u, const Field& v, std::s
     for (std::size_t i = 0; i < nx; ++i) {
       const double uc = ur[i], vc = vr[i];
       if (std::isnan(uc) || std::isnan(vc)) continue;
-      out.speed.at(k, i) = std::hypot(uc, vc);  // |u| = sqrt(u^2 + v^2)
+      out.speed.at(k, i) = std::sqrt(uc * uc + vc * vc);  // |u| = sqrt(u^2 + v^2) (no overflow: |u| << 1e150)
       const Gradient gx = diff_.gradient(vx, need_lo, j, i);
       const Gradient gy = diff_.gradient(vy, need_lo, j, i);
       const Gradient gz = diff_.gradient(vz, need_lo, j, i);
@@ -158,7 +158,7 @@ void CurvilinearKinematicsKernel::compute(const Field& u, const Field& v, std::s
       out.vorticity.at(k, i) = zeta;
       out.strain_normal.at(k, i) = sn;
       out.strain_shear.at(k, i) = ss;
-      out.strain.at(k, i) = std::hypot(sn, ss);
+      out.strain.at(k, i) = std::sqrt(sn * sn + ss * ss);  // sqrt(sn^2 + ss^2)
       out.okubo_weiss.at(k, i) = sn * sn + ss * ss - zeta * zeta;  // W = sn^2 + ss^2 - zeta^2
     }
   }

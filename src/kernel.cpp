@@ -37,11 +37,50 @@ void validate(const CurrentsOptions& o) {
 }
 
 Differentiator::Differentiator(const Grid& grid, int order, bool fallback)
-    : grid_(grid), hw_(order / 2), fallback_(fallback) {}
+    : grid_(grid), hw_(order / 2), fallback_(fallback) {
+  // Full-stencil denominators sum_m c_m (x_{+m} - x_{-m}), summed from m = hw
+  // down to 1 exactly as ladder_d1 does, so the fast path divides by the same
+  // double (stencil.hpp; "derivatives by mapping").
+  const auto& lon = grid.lon_rad();
+  const auto& lat = grid.lat_rad();
+  den_lambda_.assign(lon.size(), nan);
+  den_phi_.assign(lat.size(), nan);
+  if (hw_ < 1 || hw_ > 3) return;
+  const auto hw = static_cast<std::size_t>(hw_);
+  auto den_of = [&](const std::vector<double>& x, std::size_t k) {
+    double den = 0.0;
+    for (int m = hw_; m >= 1; --m) {
+      const auto mm = static_cast<std::size_t>(m);
+      den += detail::c1[hw_ - 1][m - 1] * (x[k + mm] - x[k - mm]);
+    }
+    return den;
+  };
+  for (std::size_t i = hw; i + hw < lon.size(); ++i) den_lambda_[i] = den_of(lon, i);
+  for (std::size_t j = hw; j + hw < lat.size(); ++j) den_phi_[j] = den_of(lat, j);
+}
+
+bool Differentiator::centred(const double* p, std::ptrdiff_t stride, double den,
+                             double& value) const {
+  for (int m = 1; m <= hw_; ++m)
+    if (std::isnan(p[m * stride]) || std::isnan(p[-m * stride])) return false;
+  // Centred first derivative, weights c1 (REFERENCES.md §3), per radian.
+  double num = 0.0;
+  for (int m = hw_; m >= 1; --m)
+    num += detail::c1[hw_ - 1][m - 1] * (p[m * stride] - p[-m * stride]);
+  value = num / den;
+  return true;
+}
 
 Derivative Differentiator::d_lambda(const Field& band, std::size_t b0, std::size_t j,
                                     std::size_t i) const {
   const double* row = band.row(j - b0);
+  if (const double den = den_lambda_[i]; !std::isnan(den)) {
+    Derivative d;
+    if (centred(row + i, 1, den, d.value)) {
+      d.status = Derivative::full;
+      return d;
+    }
+  }
   const auto nx = static_cast<long>(grid_.nx());
   const auto& lon = grid_.lon_rad();
   const bool periodic = grid_.periodic();
@@ -73,6 +112,13 @@ Derivative Differentiator::d_phi(const Field& band, std::size_t b0, std::size_t 
                                  std::size_t i) const {
   const long lo = static_cast<long>(b0), hi = static_cast<long>(b0 + band.ny);
   const long jj = static_cast<long>(j);
+  if (const double den = den_phi_[j]; !std::isnan(den) && jj - hw_ >= lo && jj + hw_ < hi) {
+    Derivative d;
+    if (centred(band.row(j - b0) + i, static_cast<std::ptrdiff_t>(band.nx), den, d.value)) {
+      d.status = Derivative::full;
+      return d;
+    }
+  }
   const auto& lat = grid_.lat_rad();
   auto crd = [&](int m) {
     const long k = jj + m;

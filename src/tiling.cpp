@@ -813,7 +813,8 @@ AuxVar output_aux(const std::optional<AuxVar>& in, const std::vector<double>& va
   return a;
 }
 
-CurrentsSummary run_currents_plane(const CurrentsJob& job, Reader& reader, WriterSettings ws) {
+CurrentsSummary run_currents_plane(const CurrentsJob& job, Reader& reader, WriterSettings ws,
+                                   std::optional<Writer>& pending) {
   const HeightInfo& info = reader.info();
   const CurvilinearGrid grid = make_curvilinear_grid(info, job.options.earth);
   const CurvilinearGeostrophicKernel kernel(grid, job.options);
@@ -868,8 +869,11 @@ CurrentsSummary run_currents_plane(const CurrentsJob& job, Reader& reader, Write
   Pipeline pipeline(job, reader, writer, velocity_step, kinematics_step, variables, rows,
                     omp_get_max_threads());
   CurrentsSummary sum = pipeline.run();
+  sum.read_path = reader.read_path();
+  sum.write_path = writer.write_path();
   writer.set_global_text("seatilt_status", "complete");
-  writer.commit();
+  writer.close();
+  pending.emplace(std::move(writer));
   return sum;
 }
 
@@ -944,6 +948,14 @@ std::size_t band_rows_for_budget(std::size_t nx, std::size_t ny, std::size_t h,
 }
 
 CurrentsSummary run_currents(const CurrentsJob& job) {
+  std::optional<Writer> pending;
+  CurrentsSummary sum = run_currents_unpublished(job, pending);
+  pending->publish();
+  return sum;
+}
+
+CurrentsSummary run_currents_unpublished(const CurrentsJob& job, std::optional<Writer>& pending) {
+  pending.reset();
   validate(job.options);
   ReaderOptions reader_options = job.reader;
   WriterSettings ws = job.writer;
@@ -951,7 +963,8 @@ CurrentsSummary run_currents(const CurrentsJob& job) {
   reader_options.horizontal_grids = true;  // projected and curvilinear inputs too
   Reader reader(job.input, reader_options);
   const HeightInfo& info = reader.info();
-  if (info.grid_kind != GridKind::lat_lon) return run_currents_plane(job, reader, std::move(ws));
+  if (info.grid_kind != GridKind::lat_lon)
+    return run_currents_plane(job, reader, std::move(ws), pending);
   Grid grid = [&] {
     try {
       return Grid(info.lat.values, info.lon.values);
@@ -989,7 +1002,8 @@ CurrentsSummary run_currents(const CurrentsJob& job) {
   sum.read_path = reader.read_path();
   sum.write_path = writer.write_path();
   writer.set_global_text("seatilt_status", "complete");
-  writer.commit();
+  writer.close();
+  pending.emplace(std::move(writer));
   return sum;
 }
 

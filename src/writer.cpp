@@ -198,6 +198,7 @@ struct Writer::Impl {
   bool open = false;        // ncid valid
   bool tmp_exists = false;  // tmp_path is ours and must go unless committed
   bool committed = false;
+  bool closed = false;      // close() done, publish() not yet
   bool has_time = false;
   std::size_t nt = 1, ny = 0, nx = 0, chunk_rows = 1;
   std::vector<VarSlot> vars;
@@ -424,7 +425,10 @@ void Writer::Impl::define_variables(const std::vector<OutputVariable>& variables
 
 const VarSlot& Writer::Impl::slot(std::size_t var, OutputType want, std::size_t t,
                                   std::size_t j0, std::size_t nrows) const {
-  if (!open) fail("", committed ? "already committed" : "file is closed after an error");
+  if (!open)
+    fail("", committed ? "already committed"
+             : closed  ? "already closed"
+                       : "file is closed after an error");
   if (var >= vars.size())
     fail("", "no output variable with index " + std::to_string(var));
   const VarSlot& s = vars[var];
@@ -911,7 +915,10 @@ void Writer::encode_rows(std::size_t var, std::size_t t, std::size_t j0, std::si
 void Writer::store(const EncodedRows& rows) {
   if (!impl_) throw OutputError("writer was moved from");
   Impl& w = *impl_;
-  if (!w.open) w.fail("", w.committed ? "already committed" : "file is closed after an error");
+  if (!w.open)
+    w.fail("", w.committed ? "already committed"
+               : w.closed  ? "already closed"
+                           : "file is closed after an error");
   w.check_rows(rows.var, rows.t, rows.j0, rows.nrows);
   w.store(rows);
 }
@@ -924,7 +931,10 @@ const std::string& Writer::write_path() const {
 void Writer::set_global_text(const std::string& name, const std::string& value) {
   if (!impl_) throw OutputError("writer was moved from");
   Impl& w = *impl_;
-  if (!w.open) w.fail("", w.committed ? "already committed" : "file is closed after an error");
+  if (!w.open)
+    w.fail("", w.committed ? "already committed"
+               : w.closed  ? "already closed"
+                           : "file is closed after an error");
   if (name.empty() || reserved_attribute(name)) w.fail("", "global attribute name '" + name + "' not allowed");
   if (w.direct) {
     w.flush(false);
@@ -937,9 +947,15 @@ void Writer::set_global_text(const std::string& name, const std::string& value) 
 }
 
 void Writer::commit() {
+  close();
+  publish();
+}
+
+void Writer::close() {
   if (!impl_) throw OutputError("writer was moved from");
   Impl& w = *impl_;
   if (w.committed) w.fail("", "already committed");
+  if (w.closed) w.fail("", "already closed");
   if (!w.open) w.fail("", "file is closed after an error");
   if (w.direct) {
     try {
@@ -974,6 +990,14 @@ void Writer::commit() {
     }
   }
   w.nc_open_ = false;
+  w.closed = true;
+}
+
+void Writer::publish() {
+  if (!impl_) throw OutputError("writer was moved from");
+  Impl& w = *impl_;
+  if (w.committed) w.fail("", "already committed");
+  if (!w.closed) w.fail("", "publish before close");
   if (const int err = sync_path(w.tmp_path, false); err != 0) {
     w.discard();
     w.fail("", "flushing to disk: " + errno_text(err));
@@ -986,6 +1010,7 @@ void Writer::commit() {
                              : "renaming " + w.tmp_path + ": " + errno_text(err));
   }
   w.tmp_exists = false;
+  w.closed = false;
   w.committed = true;
   // Make the rename itself durable; a failure here leaves a complete file.
   sync_path(split_path(w.path).first, true);

@@ -19,6 +19,7 @@
 #include <iterator>
 #include <limits>
 #include <string>
+#include <thread>
 #include <vector>
 
 #include "seatilt/error.hpp"
@@ -567,6 +568,43 @@ TEST_CASE("move keeps one owner of the temporary file") {
   CHECK(tmp.entries() == std::vector<std::string>{"m.nc"});
   CHECK_THROWS_AS(b.commit(), OutputError);  // twice
   CHECK_THROWS_AS(b.write_rows(0, 0, 0, Field(5, 5, 2.0)), OutputError);  // after commit
+}
+
+TEST_CASE("close then publish on another thread; out of order; destroyed between") {
+  TempDir tmp;
+  const HeightInfo layout = make_layout(5, 5, 1, false);
+  {
+    Writer w(tmp.file("p.nc"), layout, {OutputVariable{"u", OutputType::float32, {}}},
+             WriterSettings{});
+    CHECK_THROWS_WITH_AS(w.publish(), (tmp.file("p.nc") + ": publish before close").c_str(),
+                         OutputError);
+    w.write_rows(0, 0, 0, Field(5, 5, 2.0));
+    w.close();
+    CHECK_THROWS_AS(w.close(), OutputError);                                // twice
+    CHECK_THROWS_AS(w.write_rows(0, 0, 0, Field(5, 5, 2.0)), OutputError);  // after close
+    // Closed but unpublished: only the temporary exists, the output does not.
+    CHECK(tmp.entries().size() == 1);
+    CHECK(tmp.entries() != std::vector<std::string>{"p.nc"});
+    std::thread other([&w] { w.publish(); });  // publish makes no library call
+    other.join();
+    CHECK(tmp.entries() == std::vector<std::string>{"p.nc"});
+    CHECK_THROWS_AS(w.publish(), OutputError);  // twice
+  }
+  int ncid = -1;
+  REQUIRE(nc_open(tmp.file("p.nc").c_str(), NC_NOWRITE, &ncid) == NC_NOERR);
+  int varid = -1;
+  REQUIRE(nc_inq_varid(ncid, "u", &varid) == NC_NOERR);
+  float v = 0;
+  const std::size_t at[2] = {4, 4};
+  REQUIRE(nc_get_var1_float(ncid, varid, at, &v) == NC_NOERR);
+  CHECK(v == 2.0f);
+  nc_close(ncid);
+  {
+    Writer w(tmp.file("q.nc"), layout, {OutputVariable{"u", OutputType::float32, {}}},
+             WriterSettings{});
+    w.close();
+  }  // destroyed between close and publish: the temporary goes, nothing at q.nc
+  CHECK(tmp.entries() == std::vector<std::string>{"p.nc"});
 }
 
 TEST_CASE("missing or unwritable folder, bad arguments") {

@@ -125,9 +125,18 @@ public:
   [[nodiscard]] const Grid& grid() const { return grid_; }
 
 private:
+  /// The full centred stencil at an interior point (no seam, no grid edge),
+  /// or false when one of its values is missing. Same arithmetic, in the same
+  /// order, as the ladder (stencil.hpp), so the result is bit-identical.
+  bool centred(const double* p, std::ptrdiff_t stride, double den, double& value) const;
+
   const Grid& grid_;
   int hw_;
   bool fallback_;
+  // Denominators of the full centred stencil (stencil . coordinate) by
+  // column and by row where the stencil stays inside the grid without
+  // wrapping; NaN elsewhere (then the general ladder runs).
+  std::vector<double> den_lambda_, den_phi_;
 };
 
 /// Geostrophic surface velocity on a latitude-longitude grid.

@@ -40,6 +40,7 @@
 #pragma once
 
 #include <cstddef>
+#include <optional>
 #include <string>
 #include <vector>
 
@@ -107,5 +108,13 @@ CurvilinearGrid make_curvilinear_grid(const HeightInfo& info, EarthModel earth);
 /// longitude as docs/projected.md describes). Throws InputError (bad input, all-fill time step),
 /// OutputError (cannot write; nothing left at the output path), UsageError (bad options).
 CurrentsSummary run_currents(const CurrentsJob& job);
+
+/// run_currents without the last step: the output is complete and closed but
+/// not yet published; PENDING holds its Writer, and PENDING->publish() (fsync
+/// and rename, no library calls: any thread) makes it appear at the output
+/// path. A batch publishes one output while it computes the next (src/cli/
+/// currents.cpp). PENDING destroyed unpublished removes the temporary file.
+/// Same errors as run_currents (PENDING is left empty on error).
+CurrentsSummary run_currents_unpublished(const CurrentsJob& job, std::optional<Writer>& pending);
 
 }  // namespace seatilt

@@ -191,6 +191,17 @@ public:
   /// and a previous output at PATH is untouched) and when called twice.
   void commit();
 
+  /// commit() in two steps, so that a batch can publish one output while it
+  /// computes the next. close(): the last library call (flush, close; from
+  /// the Writer's thread). publish(): fsync, rename to the final path and
+  /// fsync of the folder — plain POSIX calls, no netCDF or HDF5, so it may
+  /// run on another thread (never concurrently with another member of this
+  /// Writer). Same errors and guarantees as commit(); a Writer destroyed
+  /// between the two removes its temporary file. Throws OutputError when
+  /// called out of order or twice.
+  void close();
+  void publish();
+
   /// Final output path.
   [[nodiscard]] const std::string& path() const;
 

@@ -5,6 +5,9 @@
 
 #include <chrono>
 #include <cstdlib>
+#include <future>
+#include <memory>
+#include <optional>
 #include <string>
 #include <vector>
 
@@ -127,10 +130,39 @@ int run_currents_command() {
     throw OutputError(args.output + ": output folder does not exist");
 
   // Under mpirun each rank takes every size()-th input (parallel.hpp); serial
-  // runs own them all.
+  // runs own them all. Each output is published (fsync + rename,
+  // run_currents_unpublished in tiling.hpp) on a helper thread while the next
+  // input is computed; its line is printed once it is published.
   ParallelSession mpi;
   std::size_t failed = 0, owned = 0;
   Error last_error(ExitCode::ok, "");
+  const auto fail_one = [&](const Error& e) {
+    if (args.inputs.size() == 1 && !mpi.active()) throw e;
+    print_error(e.what());
+    last_error = e;
+    ++failed;
+  };
+  struct Publishing {
+    std::string output;
+    CurrentsSummary summary;
+    double compute_seconds = 0;
+    std::future<double> seconds;  // of the publication
+  };
+  std::optional<Publishing> publishing;
+  const auto settle = [&] {
+    if (!publishing) return;
+    Publishing p = std::move(*publishing);
+    publishing.reset();
+    try {
+      const double secs = p.compute_seconds + p.seconds.get();
+      const CurrentsSummary& s = p.summary;
+      info(p.output + ": " + std::to_string(s.steps) + " step(s), " + std::to_string(s.cells) +
+           " cells, " + std::to_string(s.cells - s.valid) + " masked, " +
+           std::to_string(s.flagged) + " flagged, " + std::to_string(secs) + " s");
+    } catch (const Error& e) {
+      fail_one(e);
+    }
+  };
   for (std::size_t k = 0; k < args.inputs.size(); ++k) {
     if (!mpi.owns(k)) continue;
     ++owned;
@@ -154,19 +186,26 @@ int run_currents_command() {
       if (same_file(job.input, job.output))
         throw OutputError(job.output + ": output would overwrite its own input");
       const auto start = std::chrono::steady_clock::now();
-      const CurrentsSummary s = run_currents(job);
+      std::optional<Writer> pending;
+      CurrentsSummary s = run_currents_unpublished(job, pending);
       const double secs =
           std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
-      info(job.output + ": " + std::to_string(s.steps) + " step(s), " + std::to_string(s.cells) +
-           " cells, " + std::to_string(s.cells - s.valid) + " masked, " +
-           std::to_string(s.flagged) + " flagged, " + std::to_string(secs) + " s");
+      settle();  // the previous output, published meanwhile
+      auto writer = std::make_shared<Writer>(std::move(*pending));
+      publishing = Publishing{job.output, std::move(s), secs,
+                              std::async(std::launch::async, [writer] {
+                                const auto t0 = std::chrono::steady_clock::now();
+                                writer->publish();
+                                return std::chrono::duration<double>(
+                                           std::chrono::steady_clock::now() - t0)
+                                    .count();
+                              })};
     } catch (const Error& e) {
-      if (args.inputs.size() == 1 && !mpi.active()) throw;
-      print_error(e.what());
-      last_error = e;
-      ++failed;
+      settle();
+      fail_one(e);
     }
   }
+  settle();
   if (failed > 0)
     info(std::to_string(failed) + " of " + std::to_string(owned) + " inputs failed");
   // No failure: 0. Every input failed: the batch did nothing, report the
