@@ -11,6 +11,11 @@
 // docs/performance.md).
 //
 //   seatilt-io-floor [--deflate N] [--variable NAME] -o OUTDIR IN.nc...
+//   seatilt-io-floor --read-only [--variable NAME] IN.nc...
+//
+// --read-only only reads every time step of the height variable (whole
+// maps, nc_get_vara_float): the floor of `seatilt climatology` on height
+// files, which reads many inputs and writes one small output.
 //
 // Outputs: OUTDIR/<input name without .nc>_floor.nc. Exit 0, or 1 with one
 // line on stderr. A benchmark helper, not part of the seatilt command.
@@ -153,15 +158,47 @@ void run(const std::string& input, const std::string& output, const std::string&
   ok(nc_close(in), "closing " + input);
 }
 
+/// Reads every time step of the height variable; returns the count of
+/// valid values (so that the reads cannot be optimised away).
+std::size_t read_only(const std::string& input, const std::string& variable) {
+  int in = -1;
+  ok(nc_open(input.c_str(), NC_NOWRITE, &in), input);
+  const int hvar = find_height(in, variable);
+  int ndims = 0, dims[NC_MAX_VAR_DIMS];
+  ok(nc_inq_varndims(in, hvar, &ndims), "height dimensions");
+  ok(nc_inq_vardimid(in, hvar, dims), "height dimensions");
+  if (ndims != 2 && ndims != 3)
+    throw std::runtime_error("height is not (lat, lon) or (time, lat, lon)");
+  const bool has_time = ndims == 3;
+  std::size_t len[3] = {1, 0, 0};
+  for (int d = 0; d < ndims; ++d)
+    ok(nc_inq_dimlen(in, dims[d], &len[d + (has_time ? 0 : 1)]), "dimension");
+  float in_fill = NC_FILL_FLOAT;
+  nc_get_att_float(in, hvar, "_FillValue", &in_fill);
+  std::vector<float> h(len[1] * len[2]);
+  std::size_t valid = 0;
+  for (std::size_t t = 0; t < len[0]; ++t) {
+    const std::size_t start[3] = {t, 0, 0}, count[3] = {1, len[1], len[2]};
+    const int off = has_time ? 0 : 1;
+    ok(nc_get_vara_float(in, hvar, start + off, count + off, h.data()), "reading heights");
+    for (const float x : h) valid += x == x && x != in_fill;
+  }
+  ok(nc_close(in), "closing " + input);
+  return valid;
+}
+
 }  // namespace
 
 int main(int argc, char** argv) {
   std::string outdir, variable;
   int deflate = 1;
   std::vector<std::string> inputs;
+  bool reading_only = false;
   for (int a = 1; a < argc; ++a) {
     const std::string arg = argv[a];
-    if ((arg == "-o" || arg == "--deflate" || arg == "--variable") && a + 1 < argc) {
+    if (arg == "--read-only") {
+      reading_only = true;
+    } else if ((arg == "-o" || arg == "--deflate" || arg == "--variable") && a + 1 < argc) {
       const std::string value = argv[++a];
       if (arg == "-o")
         outdir = value;
@@ -173,10 +210,24 @@ int main(int argc, char** argv) {
       inputs.push_back(arg);
     }
   }
-  if (outdir.empty() || inputs.empty() || deflate < 0 || deflate > 9) {
+  if ((outdir.empty() && !reading_only) || inputs.empty() || deflate < 0 || deflate > 9) {
     std::fprintf(stderr,
-                 "usage: seatilt-io-floor [--deflate 0..9] [--variable NAME] -o OUTDIR IN.nc...\n");
+                 "usage: seatilt-io-floor [--deflate 0..9] [--variable NAME] -o OUTDIR IN.nc...\n"
+                 "       seatilt-io-floor --read-only [--variable NAME] IN.nc...\n");
     return 1;
+  }
+  if (reading_only) {
+    std::size_t valid = 0;
+    for (const std::string& input : inputs) {
+      try {
+        valid += read_only(input, variable);
+      } catch (const std::exception& e) {
+        std::fprintf(stderr, "seatilt-io-floor: %s: %s\n", input.c_str(), e.what());
+        return 1;
+      }
+    }
+    std::printf("%zu valid heights\n", valid);
+    return 0;
   }
   for (const std::string& input : inputs) {
     try {

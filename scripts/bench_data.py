@@ -107,6 +107,39 @@ def meridra(step=0.25, day=0, seed=7):
 def write(path, step=0.25, day=0, seed=7, complevel=4):
     """Writes one daily Meridra map to PATH (see the module docstring)."""
     lat, lon, eta, date = meridra(step, day, seed)
+    return write_map(path, lat, lon, eta, date, complevel)
+
+
+def write_year(folder, base_paths, days=365, complevel=4):
+    """Writes DAYS daily maps folder/dayNNN.nc for a climatology benchmark,
+    cheaply: day d mixes two of the BASE_PATHS maps (0.7 and 0.3) and adds a
+    seasonal cycle of 4 cm (sin of latitude, one year period), so that every
+    month differs while land stays the same. Existing files are kept."""
+    base = []
+    for p in base_paths:
+        with netCDF4.Dataset(p) as ds:
+            v = ds["sla"]
+            v.set_auto_maskandscale(False)
+            eta = v[0].astype("f8")
+            eta[eta == make_ssh.FLOAT32_FILL] = np.nan
+            base.append(eta)
+            lat, lon = ds["lat"][:].data, ds["lon"][:].data
+    sin_phi = np.sin(np.radians(lat))[:, None]
+    os.makedirs(folder, exist_ok=True)
+    paths = []
+    for d in range(days):
+        path = os.path.join(folder, f"day{d + 1:03d}.nc")
+        paths.append(path)
+        if os.path.exists(path):
+            continue
+        a, b = base[d % len(base)], base[(7 * d + 3) % len(base)]
+        eta = 0.7 * a + 0.3 * b + 0.04 * math.sin(2 * math.pi * d / 365.0) * sin_phi
+        write_map(path, lat, lon, eta, START + _dt.timedelta(days=d), complevel)
+    return paths
+
+
+def write_map(path, lat, lon, eta, date, complevel=4):
+    """Writes one map ETA (ny, nx; NaN on land) of DATE to PATH atomically."""
     tmp = path + ".part"
     ds = netCDF4.Dataset(tmp, "w", format="NETCDF4")
     try:

@@ -18,6 +18,7 @@
 
 #include <fcntl.h>
 #include <netcdf.h>
+#include <omp.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
@@ -30,12 +31,14 @@
 #include <cstdio>
 #include <cstring>
 #include <ctime>
+#include <exception>
 #include <initializer_list>
 #include <limits>
 #include <random>
 #include <stdexcept>
 #include <utility>
 
+#include "seatilt/chunkio.hpp"
 #include "seatilt/diagnostics.hpp"
 #include "seatilt/error.hpp"
 #include "seatilt/product.hpp"
@@ -308,18 +311,14 @@ long long calendar_day_number(const std::string& calendar, const Ymd& date) {
 
 // ---- 2. MomentGrid -----------------------------------------------------------------
 
-MomentGrid::MomentGrid(std::size_t p, std::size_t c)
-    : periods(p),
-      cells(c),
-      count(p * c, 0),
-      mean_u(p * c, 0.0),
-      mean_v(p * c, 0.0),
-      mean_speed(p * c, 0.0),
-      m2_u(p * c, 0.0),
-      m2_v(p * c, 0.0),
-      comoment_uv(p * c, 0.0),
-      count_vorticity(p * c, 0),
-      mean_vorticity(p * c, 0.0) {}
+MomentGrid::MomentGrid(std::size_t p, std::size_t c) : periods(p), cells(c) {
+  // Zeroed in transparent huge pages where the kernel offers them: a month
+  // climatology of a 1/4 degree grid holds ~0.8 GB of moments, and first
+  // touching that in 4 KiB pages took seconds (chunkio.hpp advise_huge).
+  for (auto* v : {&count, &count_vorticity}) chunkio::resize_huge(*v, p * c);
+  for (auto* v : {&mean_u, &mean_v, &mean_speed, &m2_u, &m2_v, &comoment_uv, &mean_vorticity})
+    chunkio::resize_huge(*v, p * c);
+}
 
 void MomentGrid::add(std::size_t p, std::size_t c0, std::size_t n, const double* u, const double* v,
                      const double* vorticity) {
@@ -347,7 +346,7 @@ void MomentGrid::add(std::size_t p, std::size_t c0, std::size_t n, const double*
         const double dv_new = vk - mean_v[i];
         m2_v[i] += dv * dv_new;
         comoment_uv[i] += du * dv_new;
-        mean_speed[i] += (std::hypot(uk, vk) - mean_speed[i]) / c;
+        mean_speed[i] += (std::sqrt(uk * uk + vk * vk) - mean_speed[i]) / c;  // |u|, as diagnostics
       }
     }
     if (vorticity != nullptr && std::isfinite(vorticity[k]) &&
@@ -671,27 +670,64 @@ void accumulate_height(const std::string& path, const ClimatologyJob& job,
   const KinematicsKernel kinematics(grid, job.options.order, job.options.coast, job.options.earth);
   const std::size_t hv = kernel.halo_rows(), hd = kinematics.halo_rows();
   const std::size_t ny = grid.ny(), nx = grid.nx();
-  const std::size_t rows = band_rows_for_budget(nx, ny, hv + hd, job.memory_bytes, 1);
+  // Bands of ~1 MiB of doubles per field (heights, u, v, six diagnostics:
+  // 72 bytes per cell per band in flight), computed in parallel, one band per
+  // thread; the heights of a group of bands (up to a quarter of --memory, at
+  // least one band per thread) are read first, on this thread, since netCDF
+  // is not thread-safe; the reader inflates their chunks on all threads.
+  // Small bands stay in the caches and reuse their pages (fresh pages are
+  // expensive: docs/performance.md).
+  const auto threads = static_cast<std::size_t>(std::max(1, omp_get_max_threads()));
+  const std::size_t rows = std::clamp<std::size_t>(
+      (std::size_t{1} << 20) / (8 * std::max<std::size_t>(nx, 1)), 16,
+      std::max<std::size_t>(16, band_rows_for_budget(nx, ny, hv + hd, job.memory_bytes, 1)));
+  const std::vector<Band> bands = plan_bands(ny, rows);
+  const std::size_t group_rows = std::max(
+      rows * threads, job.memory_bytes / 4 / (8 * std::max<std::size_t>(nx, 1)));
+  const std::size_t per_group = std::max<std::size_t>(1, group_rows / rows);
 
-  Field eta, u, v;
-  std::vector<std::uint8_t> flags, band_flags;
-  Kinematics kin;
+  struct Work {
+    Field u, v;
+    std::vector<std::uint8_t> flags, band_flags;
+    Kinematics kin;
+  };
+  std::vector<Work> work(threads);
+  Field eta;
   for (const Step& s : steps) {
     std::size_t valid_height = 0;
-    for (const Band& b : plan_bands(ny, rows)) {
-      const std::size_t v0 = b.j0 >= hd ? b.j0 - hd : 0;
-      const std::size_t v1 = std::min(ny, b.j0 + b.n + hd);
-      const std::size_t e0 = v0 >= hv ? v0 - hv : 0;
-      const std::size_t e1 = std::min(ny, v1 + hv);
+    for (std::size_t g0 = 0; g0 < bands.size(); g0 += per_group) {
+      const std::size_t g1 = std::min(bands.size(), g0 + per_group);
+      // Rows the group's bands need: their own, the diagnostic halo and the
+      // velocity halo (as run_currents).
+      const std::size_t j_lo = bands[g0].j0, j_hi = bands[g1 - 1].j0 + bands[g1 - 1].n;
+      const std::size_t e0 = j_lo >= hd + hv ? j_lo - hd - hv : 0;
+      const std::size_t e1 = std::min(ny, j_hi + hd + hv);
       reader.read_rows(s.t, e0, e1 - e0, eta);
-      for (std::size_t j = b.j0 - e0; j < b.j0 - e0 + b.n; ++j)
+      for (std::size_t j = j_lo - e0; j < j_hi - e0; ++j)
         for (std::size_t i = 0; i < nx; ++i) valid_height += !std::isnan(eta.at(j, i));
-      kernel.compute(eta, e0, v0, v1 - v0, u, v, flags);
-      band_flags.assign(flags.begin() + static_cast<std::ptrdiff_t>((b.j0 - v0) * nx),
-                        flags.begin() + static_cast<std::ptrdiff_t>((b.j0 - v0 + b.n) * nx));
-      kinematics.compute(u, v, v0, b.j0, b.n, kin, band_flags);
-      add_rows(state, path, s.p, b.j0 * nx, b.n * nx, u.row(b.j0 - v0), v.row(b.j0 - v0),
-               kin.vorticity.data.data());
+      std::exception_ptr error;
+      const auto n_bands = static_cast<std::ptrdiff_t>(g1 - g0);
+      // One band per thread; the kernels' own parallel loops run nested, on
+      // one thread. Bands write disjoint cells of the moments.
+#pragma omp parallel for schedule(dynamic, 1) num_threads(static_cast<int>(threads))
+      for (std::ptrdiff_t k = 0; k < n_bands; ++k) {
+        try {
+          Work& w = work[static_cast<std::size_t>(omp_get_thread_num())];
+          const Band& b = bands[g0 + static_cast<std::size_t>(k)];
+          const std::size_t v0 = b.j0 >= hd ? b.j0 - hd : 0;
+          const std::size_t v1 = std::min(ny, b.j0 + b.n + hd);
+          kernel.compute(eta, e0, v0, v1 - v0, w.u, w.v, w.flags);
+          w.band_flags.assign(w.flags.begin() + static_cast<std::ptrdiff_t>((b.j0 - v0) * nx),
+                              w.flags.begin() + static_cast<std::ptrdiff_t>((b.j0 - v0 + b.n) * nx));
+          kinematics.compute(w.u, w.v, v0, b.j0, b.n, w.kin, w.band_flags);
+          add_rows(state, path, s.p, b.j0 * nx, b.n * nx, w.u.row(b.j0 - v0),
+                   w.v.row(b.j0 - v0), w.kin.vorticity.data.data());
+        } catch (...) {
+#pragma omp critical(seatilt_climatology_error)
+          if (!error) error = std::current_exception();
+        }
+      }
+      if (error) std::rethrow_exception(error);
     }
     if (valid_height == 0)
       throw InputError(input_message(path, info.variable,

@@ -44,7 +44,7 @@ void KinematicsKernel::compute(const Field& u, const Field& v, std::size_t b0, s
     throw std::logic_error("KinematicsKernel::compute: velocity band does not cover the halo");
   for (Field* f : {&out.speed, &out.vorticity, &out.strain_normal, &out.strain_shear,
                    &out.strain, &out.okubo_weiss})
-    *f = Field(n, nx, nan);
+    f->reset(n, nx, nan);
   const auto rows = static_cast<long>(n);
 #pragma omp parallel for schedule(dynamic, 4)
   for (long r = 0; r < rows; ++r) {
@@ -102,7 +102,7 @@ void CurvilinearKinematicsKernel::compute(const Field& u, const Field& v, std::s
         "CurvilinearKinematicsKernel::compute: velocity band does not cover the halo");
   for (Field* f : {&out.speed, &out.vorticity, &out.strain_normal, &out.strain_shear, &out.strain,
                    &out.okubo_weiss})
-    *f = Field(n, nx, nan);
+    f->reset(n, nx, nan);
 
   // Earth-centred components of rows [need_lo, need_hi): V = u e_hat + v n_hat.
   const std::size_t rows = need_hi - need_lo;

@@ -198,8 +198,8 @@ void GeostrophicKernel::compute(const Field& eta, std::size_t e0, std::size_t j0
   const std::size_t need_hi = std::min(ny, j0 + n + h);
   if (eta.nx != nx || e0 > need_lo || e0 + eta.ny < need_hi || j0 + n > ny)
     throw std::logic_error("GeostrophicKernel::compute: height band does not cover the halo");
-  u = Field(n, nx, nan);
-  v = Field(n, nx, nan);
+  u.reset(n, nx, nan);
+  v.reset(n, nx, nan);
   flags.assign(n * nx, 0);
   const auto rows = static_cast<long>(n);
 #pragma omp parallel for schedule(dynamic, 4)
@@ -382,8 +382,8 @@ void CurvilinearGeostrophicKernel::compute(const Field& eta, std::size_t e0, std
   if (eta.nx != nx || e0 > need_lo || e0 + eta.ny < need_hi || j0 + n > ny)
     throw std::logic_error(
         "CurvilinearGeostrophicKernel::compute: height band does not cover the halo");
-  u = Field(n, nx, nan);
-  v = Field(n, nx, nan);
+  u.reset(n, nx, nan);
+  v.reset(n, nx, nan);
   flags.assign(n * nx, 0);
   const auto rows = static_cast<long>(n);
 #pragma omp parallel for schedule(dynamic, 4)

@@ -104,6 +104,13 @@ struct Field {
   Field() = default;
   Field(std::size_t rows, std::size_t cols, double value = 0.0)
       : ny(rows), nx(cols), data(rows * cols, value) {}
+  /// Makes this a ROWS x COLS field of VALUE, reusing the storage (no
+  /// allocation, no fresh pages when it is large enough already).
+  void reset(std::size_t rows, std::size_t cols, double value) {
+    ny = rows;
+    nx = cols;
+    data.assign(rows * cols, value);
+  }
   double& at(std::size_t j, std::size_t i) { return data[j * nx + i]; }
   [[nodiscard]] double at(std::size_t j, std::size_t i) const { return data[j * nx + i]; }
   double* row(std::size_t j) { return data.data() + j * nx; }
