@@ -687,9 +687,8 @@ void accumulate_height(const std::string& path, const ClimatologyJob& job,
   const std::size_t per_group = std::max<std::size_t>(1, group_rows / rows);
 
   struct Work {
-    Field u, v;
-    std::vector<std::uint8_t> flags, band_flags;
-    Kinematics kin;
+    Field u, v, zeta;
+    std::vector<std::uint8_t> flags;
   };
   std::vector<Work> work(threads);
   Field eta;
@@ -717,11 +716,9 @@ void accumulate_height(const std::string& path, const ClimatologyJob& job,
           const std::size_t v0 = b.j0 >= hd ? b.j0 - hd : 0;
           const std::size_t v1 = std::min(ny, b.j0 + b.n + hd);
           kernel.compute(eta, e0, v0, v1 - v0, w.u, w.v, w.flags);
-          w.band_flags.assign(w.flags.begin() + static_cast<std::ptrdiff_t>((b.j0 - v0) * nx),
-                              w.flags.begin() + static_cast<std::ptrdiff_t>((b.j0 - v0 + b.n) * nx));
-          kinematics.compute(w.u, w.v, v0, b.j0, b.n, w.kin, w.band_flags);
+          kinematics.vorticity(w.u, w.v, v0, b.j0, b.n, w.zeta);
           add_rows(state, path, s.p, b.j0 * nx, b.n * nx, w.u.row(b.j0 - v0),
-                   w.v.row(b.j0 - v0), w.kin.vorticity.data.data());
+                   w.v.row(b.j0 - v0), w.zeta.data.data());
         } catch (...) {
 #pragma omp critical(seatilt_climatology_error)
           if (!error) error = std::current_exception();

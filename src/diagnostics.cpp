@@ -78,6 +78,33 @@ void KinematicsKernel::compute(const Field& u, const Field& v, std::size_t b0, s
   }
 }
 
+void KinematicsKernel::vorticity(const Field& u, const Field& v, std::size_t b0, std::size_t j0,
+                                 std::size_t n, Field& zeta) const {
+  const std::size_t ny = grid_.ny(), nx = grid_.nx(), h = halo_rows();
+  const std::size_t need_lo = j0 >= h ? j0 - h : 0;
+  const std::size_t need_hi = std::min(ny, j0 + n + h);
+  if (u.nx != nx || v.nx != nx || u.ny != v.ny || b0 > need_lo || b0 + u.ny < need_hi)
+    throw std::logic_error("KinematicsKernel::vorticity: velocity band does not cover the halo");
+  zeta.reset(n, nx, nan);
+  const auto rows = static_cast<long>(n);
+#pragma omp parallel for schedule(dynamic, 4)
+  for (long r = 0; r < rows; ++r) {
+    const auto k = static_cast<std::size_t>(r);
+    const std::size_t j = j0 + k;
+    const double* ur = u.row(j - b0);
+    const double* vr = v.row(j - b0);
+    for (std::size_t i = 0; i < nx; ++i) {
+      const double uc = ur[i], vc = vr[i];
+      if (std::isnan(uc) || std::isnan(vc)) continue;
+      const Derivative vl = diff_.d_lambda(v, b0, j, i);
+      const Derivative up = diff_.d_phi(u, b0, j, i);
+      if (vl.status == Derivative::failed || up.status == Derivative::failed) continue;
+      // zeta = (1/(N cos phi)) dv/dlambda - (1/M) du/dphi + u tan(phi)/N, as compute() (REFERENCES §6)
+      zeta.at(k, i) = inv_ncos_[j] * vl.value - inv_m_[j] * up.value + uc * tan_over_n_[j];
+    }
+  }
+}
+
 // ---- projected and curvilinear grids (diagnostics.hpp) -------------------------------
 // Notation: V = (Vx, Vy, Vz) earth-centred velocity components (m s-1);
 // e_hat = (-sin lam, cos lam, 0), n_hat = (-sin phi cos lam, -sin phi sin lam, cos phi).

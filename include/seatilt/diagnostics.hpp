@@ -62,6 +62,16 @@ public:
   void compute(const Field& u, const Field& v, std::size_t b0, std::size_t j0, std::size_t n,
                Kinematics& out, std::vector<std::uint8_t>& flags) const;
 
+  /// Relative vorticity alone (s-1; NaN where compute() gives NaN), for
+  /// callers that need nothing else (climatologies). Equal, bit for bit, to
+  /// compute()'s vorticity when u and v are missing at the same cells (as
+  /// the geostrophic kernel and seatilt's outputs have them): it evaluates
+  /// only dv/dlambda and du/dphi, whose stencils then succeed or fail
+  /// together with du/dlambda and dv/dphi. Same preconditions as compute();
+  /// ZETA is resized to n x nx.
+  void vorticity(const Field& u, const Field& v, std::size_t b0, std::size_t j0, std::size_t n,
+                 Field& zeta) const;
+
 private:
   const Grid& grid_;
   Differentiator diff_;
