@@ -12,6 +12,7 @@
 
 #include <algorithm>
 #include <array>
+#include <cerrno>
 #include <cstring>
 #include <stdexcept>
 #include <utility>
@@ -557,10 +558,20 @@ void H5Chunked::write_chunk(const std::vector<std::size_t>& offset, const unsign
                                std::to_string(format_.dims[d]));
   const auto h = to_hsize(offset);
   herr_t status = -1;
+  errno = 0;
   H5E_BEGIN_TRY { status = H5Dwrite_chunk(id_, H5P_DEFAULT, 0, h.data(), size, data); }
   H5E_END_TRY;
-  if (status < 0) throw std::runtime_error("variable " + name_ + ": HDF5 cannot write a chunk");
+  if (status < 0) {
+    // The system's reason where HDF5's file driver left one that matters to
+    // the user (full disk, quota, file size limit, device error).
+    const int err = errno;
+    const bool telling = err == ENOSPC || err == EDQUOT || err == EFBIG || err == EIO;
+    throw std::runtime_error("variable " + name_ + ": HDF5 cannot write a chunk" +
+                             (telling ? std::string(" (") + std::strerror(err) + ")" : ""));
+  }
 }
+
+void skip_hdf5_exit_cleanup() { H5dont_atexit(); }
 
 bool H5Chunked::read_chunk(const std::vector<std::size_t>& offset, std::vector<unsigned char>& data,
                            unsigned& mask) {

@@ -634,7 +634,7 @@ void Writer::Impl::store(const EncodedRows& rows) {
     try {
       h5vars[rows.var].write_chunk(offset, rows.chunks[idx].data(), rows.chunks[idx].size());
     } catch (const std::exception& e) {
-      fail(s.name, std::string(e.what()) + " (writing " + what + ")");
+      fail("", std::string(e.what()) + " (writing " + what + ")");  // e names the variable
     }
     stored.insert({rows.var, rows.t, c});
     unsynced += rows.chunks[idx].size();

@@ -79,6 +79,13 @@ void resize_huge(std::vector<T>& v, std::size_t n) {
   v.resize(n);
 }
 
+/// Stops HDF5 from closing still-open files itself at process exit
+/// (H5dont_atexit). Call first thing in main(), before any netCDF or HDF5
+/// call. seatilt closes every file it keeps explicitly; after a write error
+/// (a full disk) HDF5 1.10's exit-time close of the failed file crashed
+/// with SIGSEGV in H5F__close_cb (tests/e2e/test_disk_full.py).
+void skip_hdf5_exit_cleanup();
+
 /// Bytes per element of TYPE (1, 2, 4 or 8).
 std::size_t element_size(ElementType type);
 

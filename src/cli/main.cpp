@@ -9,6 +9,7 @@
 #include <string>
 
 #include "cli.hpp"
+#include "seatilt/chunkio.hpp"
 #include "seatilt/error.hpp"
 #include "seatilt/product.hpp"
 #include "seatilt/version.hpp"
@@ -97,6 +98,7 @@ void set_command_line(int argc, char** argv) {
 
 int main(int argc, char** argv) {
   using namespace seatilt;
+  chunkio::skip_hdf5_exit_cleanup();  // before any netCDF/HDF5 call (chunkio.hpp)
   cli::set_command_line(argc, argv);
   CLI::App app{"seatilt: geostrophic surface currents and their kinematics from "
                "sea-surface-height grids (CF netCDF in, CF netCDF out).\n"
