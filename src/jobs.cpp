@@ -354,6 +354,231 @@ void read_currents(const Source& s, const toml::table& t, JobFile& job) {
   }
 }
 
+// ---- steps: [[quicklook]] and [[section]] tables ------------------------------------------
+/// The tables of KEY: [[KEY]] (an array of tables) or a single [KEY] table.
+std::vector<const toml::table*> step_tables(const Source& s, const toml::node& n,
+                                            const std::string& key) {
+  std::vector<const toml::table*> out;
+  if (const toml::table* t = n.as_table()) return {t};
+  if (const toml::array* a = n.as_array()) {
+    for (const toml::node& e : *a) {
+      if (!e.is_table())
+        s.fail(e, key, "expected [[" + key + "]] tables, got " + std::string(type_words(e)));
+      out.push_back(e.as_table());
+    }
+    if (!out.empty()) return out;
+  }
+  s.fail(n, key, "expected [[" + key + "]] tables, got " + std::string(type_words(n)));
+}
+
+int line_of(const toml::table& t) {
+  int line = static_cast<int>(t.source().begin.line);
+  for (auto&& [k, v] : t)
+    if (line <= 0 || static_cast<int>(k.source().begin.line) < line)
+      line = static_cast<int>(k.source().begin.line);
+  return line;
+}
+
+/// Rethrows E (a problem with KEY at node V) as "JOB:LINE: KEY: problem",
+/// dropping a leading "--option: " or "KEY: " of the message.
+[[noreturn]] void place(const Source& s, const toml::node& v, const std::string& key,
+                        const UsageError& e) {
+  std::string m = e.what();
+  if (m.rfind(s.job + ":", 0) == 0) throw e;  // already placed
+  if (m.rfind(key + ": ", 0) == 0) m = m.substr(key.size() + 2);
+  s.rethrow(v, key, UsageError(m));
+}
+
+/// A step's output template: like `output`, with a date field.
+PathTemplate step_output(const Source& s, const toml::node& v, const std::string& dotted,
+                         const std::string& folder) {
+  PathTemplate t = read_template(s, v, dotted, folder);
+  if (!t.has_date_fields())
+    s.fail(v, dotted,
+           "template '" + v.as_string()->get() +
+               "' has no date field, so every date would write the same file (add e.g. %Y%m%d)");
+  return t;
+}
+
+/// "A,B,..." from a string or an array of N numbers (for parse_region/parse_range).
+std::string number_list(const Source& s, const toml::node& v, const std::string& dotted,
+                        std::size_t n) {
+  if (v.is_string()) return v.as_string()->get();
+  const toml::array* a = v.as_array();
+  if (!a || a->size() != n)
+    s.fail(v, dotted,
+           "expected a string or an array of " + std::to_string(n) + " numbers, got " +
+               (a ? "an array of " + std::to_string(a->size()) : std::string(type_words(v))));
+  std::string text;
+  for (const toml::node& e : *a) {
+    char buf[40];
+    std::snprintf(buf, sizeof buf, "%.17g", get_number(s, e, dotted));
+    text += (text.empty() ? "" : ",") + std::string(buf);
+  }
+  return text;
+}
+
+void read_quicklook(const Source& s, const toml::table& t, JobFile& job) {
+  const std::vector<std::string> known = {"output", "source", "field",  "time",
+                                          "region", "range",  "arrows", "width"};
+  QuicklookStep q;
+  q.line = line_of(t);
+  bool have_output = false;
+  const toml::node* arrows_node = nullptr;
+  for (auto&& [k, v] : t) {
+    const std::string key(k.str());
+    const std::string dotted = "quicklook." + key;
+    try {
+      if (key == "output") {
+        q.output = step_output(s, v, dotted, job.folder);
+        have_output = true;
+      } else if (key == "source") {
+        const std::string x = get_string(s, v, dotted);
+        if (x != "output" && x != "input")
+          s.fail(v, dotted, "'" + x + "' is not one of output, input");
+        q.of_input = x == "input";
+      } else if (key == "field") {
+        q.request.field = get_string(s, v, dotted);
+      } else if (key == "time") {
+        q.request.time = static_cast<std::size_t>(get_integer(s, v, dotted, 0, 1 << 30));
+      } else if (key == "region") {
+        q.options.region = parse_region(number_list(s, v, dotted, 4));
+      } else if (key == "range") {
+        q.options.range = parse_range(number_list(s, v, dotted, 2));
+      } else if (key == "arrows") {
+        q.request.arrows = q.options.arrows = get_bool(s, v, dotted);
+        arrows_node = &v;
+      } else if (key == "width") {
+        q.options.width_px = static_cast<int>(get_integer(s, v, dotted, 320, 4096));
+      } else {
+        unknown_key(s, k, "[quicklook]", known);
+      }
+    } catch (const UsageError& e) {
+      place(s, v, dotted, e);
+    }
+  }
+  if (!have_output)
+    throw UsageError(s.job + ":" + std::to_string(q.line) +
+                     ": quicklook: missing key 'output' (a PNG path template, e.g. "
+                     "\"maps/%Y/speed_%Y%m%d.png\")");
+  if (q.of_input && q.request.arrows)
+    s.fail(*arrows_node, "quicklook.arrows",
+           "needs u and v from the day's output; not with source = \"input\"");
+  job.quicklooks.push_back(std::move(q));
+}
+
+/// Which of a [[section]] table's physics keys were given (the others follow [currents]).
+struct SectionGiven {
+  bool band = false, earth = false, gravity = false;
+};
+
+void read_section(const Source& s, const toml::table& t, JobFile& job,
+                  std::vector<SectionGiven>& given) {
+  const std::vector<std::string> known = {"output", "name",         "line",  "sections", "spacing",
+                                          "depth",  "equator_band", "earth", "gravity"};
+  SectionStep st;
+  st.line = line_of(t);
+  SectionGiven g;
+  bool have_output = false;
+  std::optional<std::string> name, line;
+  const toml::node* line_node = nullptr;
+  const toml::node* name_node = nullptr;
+  std::vector<SectionLine> from_file;
+  SectionOptions& o = st.options;
+  for (auto&& [k, v] : t) {
+    const std::string key(k.str());
+    const std::string dotted = "section." + key;
+    try {
+      if (key == "output") {
+        st.output = step_output(s, v, dotted, job.folder);
+        const std::string& text = st.output.text();
+        const auto ends = [&](const char* e) {
+          const std::size_t n = std::strlen(e);
+          return text.size() > n && text.compare(text.size() - n, n, e) == 0;
+        };
+        if (!ends(".csv") && !ends(".nc") && !ends(".nc4"))
+          s.fail(v, dotted, "'" + v.as_string()->get() + "' must end in .csv, .nc or .nc4");
+        have_output = true;
+      } else if (key == "name") {
+        name = get_string(s, v, dotted);
+        check_section_name(*name, dotted);
+        name_node = &v;
+      } else if (key == "line") {
+        line = get_string(s, v, dotted);
+        line_node = &v;
+      } else if (key == "sections") {
+        const std::string file = resolve(job.folder, get_string(s, v, dotted));
+        try {
+          from_file = read_section_file(file);
+        } catch (const UsageError& e) {
+          s.fail(v, dotted, e.what());
+        }
+      } else if (key == "spacing") {
+        const double km = get_number(s, v, dotted);
+        if (!(km > 0.0)) s.fail(v, dotted, "must be a distance > 0 in km");
+        o.spacing_m = km * 1e3;
+        validate(o);
+      } else if (key == "depth") {
+        o.depth_m = get_number(s, v, dotted);
+        if (!(o.depth_m > 0.0)) s.fail(v, dotted, "must be a depth > 0 in m");
+        validate(o);
+      } else if (key == "equator_band") {
+        o.equator_band_deg = get_number(s, v, dotted);
+        validate(o);
+        g.band = true;
+      } else if (key == "earth") {
+        const std::string x = get_string(s, v, dotted);
+        if (!parse_earth(x, o.earth)) s.fail(v, dotted, "'" + x + "' is not one of sphere, wgs84");
+        g.earth = true;
+      } else if (key == "gravity") {
+        if (v.is_string()) {
+          const std::string x = v.as_string()->get();
+          if (!parse_gravity_name(x, o.gravity))
+            s.fail(v, dotted, "'" + x + "' is not standard, wgs84 or a number in m s-2");
+        } else {
+          if (!v.is_number())
+            s.fail(
+                v, dotted,
+                std::string("expected \"standard\", \"wgs84\" or a number, got ") + type_words(v));
+          o.gravity = GravityModel::constant;
+          o.gravity_value = get_number(s, v, dotted);
+          validate(o);
+        }
+        g.gravity = true;
+      } else {
+        unknown_key(s, k, "[section]", known);
+      }
+    } catch (const UsageError& e) {
+      place(s, v, dotted, e);
+    }
+  }
+  const std::string at = s.job + ":" + std::to_string(st.line) + ": section: ";
+  if (!have_output)
+    throw UsageError(at +
+                     "missing key 'output' (a .csv or .nc path template, e.g. "
+                     "\"sections/gates_%Y%m%d.csv\")");
+  if (name && !line) s.fail(*name_node, "section.name", "only with section.line");
+  if (line) {
+    SectionLine l;
+    l.name = name.value_or("line");
+    try {
+      l.points = parse_section_line(*line, "section.line");
+    } catch (const UsageError& e) {
+      place(s, *line_node, "section.line", e);
+    }
+    for (const SectionLine& f : from_file)
+      if (f.name == l.name)
+        s.fail(*line_node, "section.line",
+               "name '" + l.name + "' is also used in section.sections (give section.name)");
+    st.sections.push_back(std::move(l));
+  }
+  for (SectionLine& f : from_file) st.sections.push_back(std::move(f));
+  if (st.sections.empty())
+    throw UsageError(at + "needs line = \"LON LAT, LON LAT, ...\" or sections = \"FILE.toml\"");
+  job.sections.push_back(std::move(st));
+  given.push_back(g);
+}
+
 // ---- running --------------------------------------------------------------------------
 std::atomic<int> stop_request{0};
 static_assert(std::atomic<int>::is_always_lock_free,
@@ -440,14 +665,92 @@ class AppendFile {
   int fd_ = -1;
 };
 
+/// Creates the folder of PATH (and its parents) when the job says so.
+void make_folder_of(const JobFile& job, const std::string& path) {
+  if (!job.make_folders) return;
+  const fs::path folder = fs::path(path).parent_path();
+  std::error_code ec;
+  if (!folder.empty()) fs::create_directories(folder, ec);
+  if (ec) throw OutputError(folder.string() + ": cannot create output folder: " + ec.message());
+}
+
+/// Makes one step of a date (its source is complete); throws like the
+/// quicklook and section modules.
+void run_step(const JobFile& job, const RunSettings& settings, StepResult& r) {
+  const StepPlan& p = r.step;
+  make_folder_of(job, p.output);
+  // Replace what was there when planned (stale, torn or --force) by rename;
+  // never clobber a file that appeared after planning.
+  const bool replace = p.was != OutputState::absent;
+  const auto start = std::chrono::steady_clock::now();
+  if (p.kind == StepKind::quicklook) {
+    const QuicklookStep& q = job.quicklooks.at(p.index);
+    MapRequest request = q.request;
+    if (q.of_input && (request.field.empty() || request.field == job.reader.variable)) {
+      // The height as `currents` reads it (variable and units of [currents]).
+      request.as_height = true;
+      request.field = job.reader.variable;
+      request.units = job.reader.units;
+    }
+    QuicklookOptions options = q.options;
+    options.force = replace;
+    const MapData map = read_map_data(p.source, request);
+    write_quicklook(map, options, p.output);
+  } else {
+    const SectionStep& st = job.sections.at(p.index);
+    SectionJob sj;
+    sj.inputs = {p.source};
+    sj.output = p.output;
+    sj.reader = job.reader;
+    sj.sections = st.sections;
+    sj.options = st.options;
+    sj.force = replace;
+    sj.command_line = settings.command_line;
+    run_sections(sj);
+  }
+  r.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count();
+  r.status = replace ? FileStatus::redone : FileStatus::done;
+}
+
+/// True when the file at PATH ends in the PNG IEND chunk (PNG spec 11.2.5:
+/// length 0, type "IEND", CRC AE 42 60 82) and starts with the signature (5.2).
+bool whole_png(const std::string& path, off_t size) {
+  static const unsigned char signature[8] = {0x89, 'P', 'N', 'G', '\r', '\n', 0x1a, '\n'};
+  static const unsigned char iend[12] = {0, 0, 0, 0, 'I', 'E', 'N', 'D', 0xae, 0x42, 0x60, 0x82};
+  if (size < 8 + 12) return false;
+  const int fd = ::open(path.c_str(), O_RDONLY | O_CLOEXEC);
+  if (fd < 0) return false;
+  unsigned char head[8], tail[12];
+  const bool ok = ::pread(fd, head, 8, 0) == 8 && ::pread(fd, tail, 12, size - 12) == 12 &&
+                  std::memcmp(head, signature, 8) == 0 && std::memcmp(tail, iend, 12) == 0;
+  ::close(fd);
+  return ok;
+}
+
+/// True when the CSV at PATH starts with the section header and ends in a newline.
+bool whole_csv(const std::string& path, off_t size) {
+  static const char header[] = "time,section,";
+  const std::size_t n = sizeof header - 1;
+  if (size < static_cast<off_t>(n + 1)) return false;
+  const int fd = ::open(path.c_str(), O_RDONLY | O_CLOEXEC);
+  if (fd < 0) return false;
+  char head[sizeof header];
+  char last = 0;
+  const bool ok = ::pread(fd, head, n, 0) == static_cast<ssize_t>(n) &&
+                  ::pread(fd, &last, 1, size - 1) == 1 && std::memcmp(head, header, n) == 0 &&
+                  last == '\n';
+  ::close(fd);
+  return ok;
+}
+
+bool has_suffix(const std::string& s, const char* suffix) {
+  const std::size_t n = std::strlen(suffix);
+  return s.size() >= n && s.compare(s.size() - n, n, suffix) == 0;
+}
+
 void compute(const JobFile& job, const RunSettings& settings, FileResult& r) {
   const PlanItem& item = r.item;
-  if (job.make_folders) {
-    const fs::path folder = fs::path(item.output).parent_path();
-    std::error_code ec;
-    if (!folder.empty()) fs::create_directories(folder, ec);
-    if (ec) throw OutputError(folder.string() + ": cannot create output folder: " + ec.message());
-  }
+  make_folder_of(job, item.output);
   if (same_file(item.input, item.output))
     throw OutputError(item.output + ": output would overwrite its own input");
   CurrentsJob cj;
@@ -567,9 +870,10 @@ JobFile parse_job(const std::string& text, const std::string& path) {
   }
   job.lock_file = (fs::path(job.folder) / fs::path(path).filename()).string() + ".lock";
 
-  const std::vector<std::string> known = {"name",         "input",         "output",
-                                          "make_folders", "missing_input", "lock_file",
-                                          "log_json",     "dates",         "currents"};
+  const std::vector<std::string> known = {"name",          "input",     "output",   "make_folders",
+                                          "missing_input", "lock_file", "log_json", "dates",
+                                          "currents",      "quicklook", "section"};
+  std::vector<SectionGiven> section_given;
   bool have_input = false, have_output = false;
   for (auto&& [k, v] : root) {
     const std::string key(k.str());
@@ -605,6 +909,10 @@ JobFile parse_job(const std::string& text, const std::string& path) {
       read_dates(s, get_table(s, v, key), job);
     else if (key == "currents")
       read_currents(s, get_table(s, v, key), job);
+    else if (key == "quicklook")
+      for (const toml::table* t : step_tables(s, v, key)) read_quicklook(s, *t, job);
+    else if (key == "section")
+      for (const toml::table* t : step_tables(s, v, key)) read_section(s, *t, job, section_given);
     else
       unknown_key(s, k, "", known);
   }
@@ -618,6 +926,16 @@ JobFile parse_job(const std::string& text, const std::string& path) {
     throw UsageError(path + ":" + std::to_string(job.output_line) +
                      ": output: same template as input (an output would replace its input)");
   if (job.fields.empty()) job.fields = parse_field_list("all");
+  // [[section]] physics not given in the table follow [currents].
+  for (std::size_t k = 0; k < job.sections.size(); ++k) {
+    SectionOptions& o = job.sections[k].options;
+    if (!section_given[k].band) o.equator_band_deg = job.options.equator_band_deg;
+    if (!section_given[k].earth) o.earth = job.options.earth;
+    if (!section_given[k].gravity) {
+      o.gravity = job.options.gravity;
+      o.gravity_value = job.options.gravity_value;
+    }
+  }
   return job;
 }
 
@@ -723,9 +1041,37 @@ const char* action_name(PlanAction a) {
   return "?";
 }
 
+const char* step_name(StepKind kind) {
+  return kind == StepKind::quicklook ? "quicklook" : "section";
+}
+
+OutputState step_output_state(const std::string& path, const std::string& reference) {
+  struct stat st {};
+  if (::lstat(path.c_str(), &st) != 0)
+    return errno == ENOENT ? OutputState::absent : OutputState::incomplete;
+  if (::stat(path.c_str(), &st) != 0 || !S_ISREG(st.st_mode)) return OutputState::incomplete;
+  struct stat ref {};
+  if (::stat(reference.c_str(), &ref) == 0) {  // made from an older currents output: stale
+    const auto ns = [](const struct timespec& t) {
+      return static_cast<long double>(t.tv_sec) * 1e9L + static_cast<long double>(t.tv_nsec);
+    };
+    if (ns(st.st_mtim) < ns(ref.st_mtim)) return OutputState::incomplete;
+  }
+  bool whole = false;
+  if (has_suffix(path, ".nc") || has_suffix(path, ".nc4"))
+    whole = output_state(path) == OutputState::complete;
+  else if (has_suffix(path, ".csv"))
+    whole = whole_csv(path, st.st_size);
+  else
+    whole = whole_png(path, st.st_size);
+  return whole ? OutputState::complete : OutputState::incomplete;
+}
+
 std::vector<PlanItem> make_plan(const JobFile& job, const std::vector<Date>& dates, bool force) {
   std::vector<PlanItem> plan;
   std::map<std::string, Date> seen;
+  // Every file a plan writes: path -> (date, "output" or the step's key and number).
+  std::map<std::string, std::pair<Date, std::string>> files;
   const std::string where = job.path + ":" + std::to_string(job.output_line) + ": output: ";
   for (const Date& d : dates) {
     PlanItem it;
@@ -749,7 +1095,47 @@ std::vector<PlanItem> make_plan(const JobFile& job, const std::vector<Date>& dat
           job.missing_input == MissingInput::skip ? PlanAction::missing_ok : PlanAction::missing;
     else
       it.action = it.was == OutputState::absent ? PlanAction::run : PlanAction::redo;
+    files.emplace(it.output, std::make_pair(d, std::string("output")));
     plan.push_back(std::move(it));
+  }
+  // Steps, after every date's output is known (a step may not write another date's output).
+  for (PlanItem& it : plan) {
+    if (it.action == PlanAction::missing || it.action == PlanAction::missing_ok) continue;
+    const bool computing = it.action == PlanAction::run || it.action == PlanAction::redo;
+    const auto add = [&](StepKind kind, std::size_t index, const PathTemplate& tmpl, int line,
+                         const std::string& source) {
+      StepPlan p;
+      p.kind = kind;
+      p.index = index;
+      p.source = source;
+      p.output = tmpl.expand(it.date);
+      const std::string key = std::string(step_name(kind)) + ".output";
+      const std::string label =
+          key + " of [[" + step_name(kind) + "]] " + std::to_string(index + 1);
+      const std::string at = job.path + ":" + std::to_string(line) + ": " + key + ": ";
+      if (p.output == it.input || p.output == it.output)
+        throw UsageError(at + "for " + it.date.iso() + " the file equals the day's " +
+                         (p.output == it.input ? "input" : "output") + ": " + p.output);
+      const auto [pos, fresh] = files.emplace(p.output, std::make_pair(it.date, label));
+      if (!fresh)
+        throw UsageError(at + "template '" + tmpl.text() + "' gives " + p.output + " for " +
+                         it.date.iso() + ", which is also the " + pos->second.second + " for " +
+                         pos->second.first.iso() + " (add a day field such as %d or %j)");
+      p.was = step_output_state(p.output, it.output);
+      if (computing || force)
+        p.action = p.was == OutputState::absent ? PlanAction::run : PlanAction::redo;
+      else
+        p.action = p.was == OutputState::complete ? PlanAction::skip
+                   : p.was == OutputState::absent ? PlanAction::run
+                                                  : PlanAction::redo;
+      it.steps.push_back(std::move(p));
+    };
+    for (std::size_t k = 0; k < job.quicklooks.size(); ++k) {
+      const QuicklookStep& q = job.quicklooks[k];
+      add(StepKind::quicklook, k, q.output, q.line, q.of_input ? it.input : it.output);
+    }
+    for (std::size_t k = 0; k < job.sections.size(); ++k)
+      add(StepKind::section, k, job.sections[k].output, job.sections[k].line, it.input);
   }
   return plan;
 }
@@ -760,6 +1146,10 @@ std::vector<std::string> remove_stale_temporaries(const std::vector<PlanItem>& p
   for (const PlanItem& it : plan) {
     const fs::path p(it.output);
     names[p.parent_path().string()].insert(p.filename().string());
+    for (const StepPlan& step : it.steps) {
+      const fs::path q(step.output);
+      names[q.parent_path().string()].insert(q.filename().string());
+    }
   }
   std::vector<std::string> removed;
   const pid_t self = ::getpid();
@@ -871,8 +1261,8 @@ const char* status_name(FileStatus s) {
 
 int RunTotals::exit_code() const {
   if (stop_signal > 0) return 128 + stop_signal;  // shell convention for "killed by signal"
-  if (failed_output > 0) return static_cast<int>(ExitCode::output);
-  if (failed_input > 0) return static_cast<int>(ExitCode::batch);
+  if (failed_output + steps_failed_output > 0) return static_cast<int>(ExitCode::output);
+  if (failed_input + steps_failed_input > 0) return static_cast<int>(ExitCode::batch);
   return static_cast<int>(ExitCode::ok);
 }
 
@@ -901,6 +1291,23 @@ std::string json_log_line(const FileResult& r, const std::string& job_name,
   }
   o += ", \"message\": " + (has_message ? json_string(r.message) : std::string("null")) + "}\n";
   return o;
+}
+
+std::string json_step_line(const StepResult& r, const std::string& job_name,
+                           const std::string& time_iso) {
+  const bool computed = r.status == FileStatus::done || r.status == FileStatus::redone;
+  const bool has_message = r.status == FileStatus::failed || r.status == FileStatus::interrupted;
+  char secs[32];
+  std::snprintf(secs, sizeof secs, "%.3f", r.seconds);
+  return "{\"time\": " + json_string(time_iso) + ", \"job\": " + json_string(job_name) +
+         ", \"date\": " + json_string(r.date.iso()) +
+         ", \"step\": " + json_string(step_name(r.step.kind)) +
+         ", \"step_index\": " + std::to_string(r.step.index + 1) +
+         ", \"input\": " + json_string(r.step.source) +
+         ", \"output\": " + json_string(r.step.output) +
+         ", \"status\": " + json_string(status_name(r.status)) +
+         ", \"seconds\": " + (computed ? std::string(secs) : "null") +
+         ", \"message\": " + (has_message ? json_string(r.message) : std::string("null")) + "}\n";
 }
 
 RunTotals run_plan(const JobFile& job, const std::vector<PlanItem>& plan,
@@ -977,6 +1384,51 @@ RunTotals run_plan(const JobFile& job, const std::vector<PlanItem>& plan,
     }
     log.append(json_log_line(r, job.name, iso_time_utc(std::time(nullptr))));
     observer.file_finished(r, i, plan.size());
+    // Steps, once the day's output is complete.
+    const bool ready = r.status == FileStatus::done || r.status == FileStatus::redone ||
+                       r.status == FileStatus::skipped;
+    if (ready && !stopped)
+      for (const StepPlan& step : r.item.steps) {
+        if (stop_signal() != 0) {
+          stopped = true;
+          break;
+        }
+        StepResult sr;
+        sr.date = r.item.date;
+        sr.step = step;
+        if (step.action == PlanAction::skip) {
+          sr.status = FileStatus::skipped;
+        } else {
+          try {
+            run_step(job, settings, sr);
+          } catch (const Error& e) {
+            sr.status = FileStatus::failed;
+            sr.code = e.code() == ExitCode::output ? ExitCode::output : ExitCode::input;
+            sr.message = e.what();
+          } catch (const std::exception& e) {
+            sr.status = FileStatus::failed;
+            sr.code = ExitCode::input;
+            sr.message = step.output + ": internal error: " + e.what();
+          }
+        }
+        switch (sr.status) {
+          case FileStatus::done:
+            ++totals.steps_done;
+            break;
+          case FileStatus::redone:
+            ++totals.steps_redone;
+            break;
+          case FileStatus::skipped:
+            ++totals.steps_skipped;
+            break;
+          default:
+            ++(sr.code == ExitCode::output ? totals.steps_failed_output
+                                           : totals.steps_failed_input);
+            break;
+        }
+        log.append(json_step_line(sr, job.name, iso_time_utc(std::time(nullptr))));
+        observer.step_finished(sr);
+      }
     if (stopped) break;
   }
   if (stopped) totals.stop_signal = stop_signal();

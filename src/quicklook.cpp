@@ -37,6 +37,7 @@
 
 #include "seatilt/error.hpp"
 #include "seatilt/reader.hpp"
+#include "seatilt/tiling.hpp"
 
 namespace seatilt {
 
@@ -430,6 +431,37 @@ std::string dims_text(const NcFile& f, const std::vector<int>& dims) {
   return "(" + join(parts, ", ") + ")";
 }
 
+/// The layout of VAR whose last two dimensions hold ROWS x COLUMNS cells
+/// (coordinate values, or indices): checks that only the dimension before
+/// them may be longer than 1 and takes it as time.
+Layout layout_with(const NcFile& f, const NcVar& var, std::vector<double> rows,
+                   std::vector<double> columns) {
+  if (!numeric_type(var.type))
+    throw InputError(input_message(f.path(), var.name, "is not numeric"));
+  const std::size_t n = var.dims.size();
+  for (std::size_t k = 0; k + 3 < n; ++k)
+    if (dim_length(f, var.dims[k]) != 1)
+      throw InputError(input_message(f.path(), var.name,
+                                     "dimensions " + dims_text(f, var.dims) +
+                                         ": only the one before latitude may be longer than 1"));
+  Layout l;
+  l.lat_dim = var.dims[n - 2];
+  l.lon_dim = var.dims[n - 1];
+  l.lat = std::move(rows);
+  l.lon = std::move(columns);
+  if (l.lat.size() != dim_length(f, l.lat_dim) || l.lon.size() != dim_length(f, l.lon_dim))
+    throw InputError(input_message(
+        f.path(), var.name,
+        "dimensions " + dims_text(f, var.dims) + " do not match the grid of the map"));
+  if (n >= 3) {
+    l.has_time_dim = true;
+    l.nt = dim_length(f, var.dims[n - 3]);
+    l.time_coord = coordinate_of(f, var.dims[n - 3]);
+    if (l.nt == 0) throw InputError(input_message(f.path(), var.name, "has no time steps"));
+  }
+  return l;
+}
+
 Layout resolve_layout(const NcFile& f, const NcVar& var) {
   if (!numeric_type(var.type))
     throw InputError(input_message(f.path(), var.name, "is not numeric"));
@@ -439,24 +471,18 @@ Layout resolve_layout(const NcFile& f, const NcVar& var) {
         f.path(), var.name,
         "dimensions " + dims_text(f, var.dims) +
             " do not end in latitude, longitude (CF coordinate variables with units "
-            "degrees_north and degrees_east); a map needs (lat, lon) or (time, lat, lon)"));
-  for (std::size_t k = 0; k + 3 < n; ++k)
-    if (dim_length(f, var.dims[k]) != 1)
-      throw InputError(input_message(f.path(), var.name,
-                                     "dimensions " + dims_text(f, var.dims) +
-                                         ": only the one before latitude may be longer than 1"));
-  Layout l;
-  l.lat_dim = var.dims[n - 2];
-  l.lon_dim = var.dims[n - 1];
-  l.lat = read_coordinate(f, *coordinate_of(f, l.lat_dim));
-  l.lon = read_coordinate(f, *coordinate_of(f, l.lon_dim));
-  if (n >= 3) {
-    l.has_time_dim = true;
-    l.nt = dim_length(f, var.dims[n - 3]);
-    l.time_coord = coordinate_of(f, var.dims[n - 3]);
-    if (l.nt == 0) throw InputError(input_message(f.path(), var.name, "has no time steps"));
-  }
-  return l;
+            "degrees_north and degrees_east) nor in projected y, x with a grid_mapping or 2-D "
+            "latitude/longitude in its coordinates attribute; a map needs (lat, lon) or "
+            "(time, lat, lon)"));
+  return layout_with(f, var, read_coordinate(f, *coordinate_of(f, var.dims[n - 2])),
+                     read_coordinate(f, *coordinate_of(f, var.dims[n - 1])));
+}
+
+/// True when VAR may lie on a projected or curvilinear grid: at least two
+/// dimensions and a grid_mapping or coordinates attribute (CF 5.2, 5.6).
+bool maybe_plane(const NcFile& f, const NcVar& var) {
+  return var.dims.size() >= 2 && numeric_type(var.type) &&
+         (has_att(f.id(), var.id, "grid_mapping") || has_att(f.id(), var.id, "coordinates"));
 }
 
 /// Reads time step T of VAR (layout L) as ny x nx doubles, NaN where missing:
@@ -548,8 +574,8 @@ std::vector<std::string> drawable_variables(const NcFile& f) {
   std::vector<std::string> names;
   for (int k = 0; k < nvars; ++k) {
     const NcVar v = inquire(f, k);
-    if (v.dims.size() >= 2 && on_lat_lon(f, v) && !has_att(f.id(), v.id, "flag_masks") &&
-        !has_att(f.id(), v.id, "flag_values"))
+    if (v.dims.size() >= 2 && (on_lat_lon(f, v) || maybe_plane(f, v)) &&
+        !has_att(f.id(), v.id, "flag_masks") && !has_att(f.id(), v.id, "flag_values"))
       names.push_back(v.name);
   }
   return names;
@@ -592,10 +618,24 @@ std::string time_beyond(std::size_t t, std::size_t nt) {
          std::to_string(nt) + ": 0.." + std::to_string(nt - 1) + ")";
 }
 
+/// The grid of a projected or curvilinear INFO (node positions, metric);
+/// 2-D latitude/longitude on WGS84 (the `currents` default).
+std::shared_ptr<const CurvilinearGrid> plane_grid(const HeightInfo& info) {
+  return std::make_shared<const CurvilinearGrid>(make_curvilinear_grid(info, EarthModel::wgs84));
+}
+
+/// "polar_stereographic", "curvilinear", ... for titles.
+std::string plane_name(const CurvilinearGrid& g) {
+  return g.projection() ? g.projection()->name() : std::string("curvilinear");
+}
+
 /// Reads a height through seatilt::Reader (metres), as `currents` reads it.
-MapData read_height(const std::string& path, const std::string& variable, std::size_t t) {
+MapData read_height(const std::string& path, const std::string& variable, const std::string& units,
+                    std::size_t t) {
   ReaderOptions ro;
   ro.variable = variable;
+  ro.units = units;
+  ro.horizontal_grids = true;  // projected and curvilinear grids, as in `currents`
   std::optional<Reader> reader;
   try {
     reader.emplace(path, ro);
@@ -613,8 +653,14 @@ MapData read_height(const std::string& path, const std::string& variable, std::s
   d.long_name = in.long_name.empty() ? in.variable : in.long_name;
   d.units = "m";
   d.scale = in.kind == HeightKind::anomaly ? ColourScale::diverging : ColourScale::sequential;
-  d.lat_deg = in.lat.values;
-  d.lon_deg = in.lon.values;
+  d.grid_kind = in.grid_kind;
+  if (in.grid_kind == GridKind::lat_lon) {
+    d.lat_deg = in.lat.values;
+    d.lon_deg = in.lon.values;
+  } else {
+    d.plane = plane_grid(in);
+    d.grid_name = plane_name(*d.plane);
+  }
   d.time_steps = in.nt;
   if (t >= in.nt) throw UsageError(input_message(path, in.variable, time_beyond(t, in.nt)));
   d.time_index = t;
@@ -730,16 +776,36 @@ MapData read_other(const NcFile& f, const std::string& name, std::size_t t) {
     throw UsageError(input_message(f.path(), name,
                                    "is a flag variable (flag_masks/flag_values), not a continuous "
                                    "field; choose another --field"));
-  const Layout l = resolve_layout(f, *var);
-  if (t >= l.nt) throw UsageError(input_message(f.path(), name, time_beyond(t, l.nt)));
   MapData d;
+  Layout l;
+  if (!on_lat_lon(f, *var) && maybe_plane(f, *var)) {
+    // The grid as `currents` finds it (reader.hpp): the Reader insists on a
+    // length unit, which this probe gives it; only the grid is used.
+    ReaderOptions ro;
+    ro.variable = name;
+    ro.units = "m";
+    ro.horizontal_grids = true;
+    ro.raw_chunks = false;
+    const HeightInfo info = Reader(f.path(), ro).info();
+    d.grid_kind = info.grid_kind;
+    if (info.grid_kind != GridKind::lat_lon) {
+      d.plane = plane_grid(info);
+      d.grid_name = plane_name(*d.plane);
+    }
+    l = layout_with(f, *var, info.lat.values, info.lon.values);
+  } else {
+    l = resolve_layout(f, *var);
+  }
+  if (t >= l.nt) throw UsageError(input_message(f.path(), name, time_beyond(t, l.nt)));
   d.path = f.path();
   d.variable = name;
   const std::string long_name = text_att(f.id(), var->id, "long_name");
   d.long_name = long_name.empty() ? name : long_name;
   d.units = text_att(f.id(), var->id, "units");
-  d.lat_deg = l.lat;
-  d.lon_deg = l.lon;
+  if (d.grid_kind == GridKind::lat_lon) {
+    d.lat_deg = l.lat;
+    d.lon_deg = l.lon;
+  }
   d.time_index = t;
   d.time_steps = l.nt;
   d.values = read_step(f, *var, l, t);
@@ -757,10 +823,22 @@ void read_arrows(MapData& d, std::size_t t) {
     throw UsageError(input_message(d.path, "",
                                    "--arrows needs the variables u and v (an output "
                                    "of `seatilt currents`)"));
+  const auto field = find_var(f, d.variable);
   for (const NcVar* c : {&*u, &*v}) {
-    const Layout l = resolve_layout(f, *c);
-    if (l.lat != d.lat_deg || l.lon != d.lon_deg)
-      throw InputError(input_message(d.path, c->name, "is not on the grid of " + d.variable));
+    Layout l;
+    if (d.grid_kind == GridKind::lat_lon) {
+      l = resolve_layout(f, *c);
+      if (l.lat != d.lat_deg || l.lon != d.lon_deg)
+        throw InputError(input_message(d.path, c->name, "is not on the grid of " + d.variable));
+    } else {
+      // Same grid = the same last two dimensions as the drawn field.
+      const std::size_t n = c->dims.size();
+      if (!field || n < 2 || field->dims.size() < 2 ||
+          c->dims[n - 2] != field->dims[field->dims.size() - 2] ||
+          c->dims[n - 1] != field->dims.back())
+        throw InputError(input_message(d.path, c->name, "is not on the grid of " + d.variable));
+      l = layout_with(f, *c, d.plane->row_coord(), d.plane->col_coord());
+    }
     if (t >= l.nt) throw UsageError(input_message(d.path, c->name, time_beyond(t, l.nt)));
     (c == &*u ? d.u : d.v) = read_step(f, *c, l, t);
   }
@@ -771,8 +849,8 @@ void read_arrows(MapData& d, std::size_t t) {
 
 MapData read_map_data(const std::string& path, const MapRequest& request) {
   MapData d;
-  bool height = false;
-  {
+  bool height = request.as_height;
+  if (!height) {
     NcFile f(path);
     std::string name = request.field;
     if (name.empty()) {
@@ -785,11 +863,13 @@ MapData read_map_data(const std::string& path, const MapRequest& request) {
     }
     if (!height) d = read_other(f, name, request.time);
   }
-  if (height) d = read_height(path, request.field, request.time);
-  try {
-    Grid check(d.lat_deg, d.lon_deg);
-  } catch (const std::invalid_argument& e) {
-    throw InputError(input_message(path, d.variable, e.what()));
+  if (height) d = read_height(path, request.field, request.units, request.time);
+  if (d.grid_kind == GridKind::lat_lon) {
+    try {
+      Grid check(d.lat_deg, d.lon_deg);
+    } catch (const std::invalid_argument& e) {
+      throw InputError(input_message(path, d.variable, e.what()));
+    }
   }
   if (all_missing(d.values))
     throw InputError(
@@ -803,7 +883,8 @@ MapData read_map_data(const std::string& path, const MapRequest& request) {
 
 void pixel_to_lonlat(const QuicklookResult& r, int px, int py, double& lon_deg, double& lat_deg) {
   const PixelBox& m = r.map;
-  if (px < m.x || py < m.y || px >= m.x + m.width || py >= m.y + m.height) {
+  if (px < m.x || py < m.y || px >= m.x + m.width || py >= m.y + m.height ||
+      r.grid_kind != GridKind::lat_lon) {
     lon_deg = lat_deg = nan;
     return;
   }
@@ -818,6 +899,24 @@ void lonlat_to_pixel(const QuicklookResult& r, double lon_deg, double lat_deg, i
                  std::floor((lon - r.region.lon0) / (r.region.lon1 - r.region.lon0) * m.width));
   py = m.y + static_cast<int>(std::floor((r.region.lat1 - lat_deg) /
                                          (r.region.lat1 - r.region.lat0) * m.height));
+}
+
+void pixel_to_grid(const QuicklookResult& r, int px, int py, double& c, double& row) {
+  const PixelBox& m = r.map;
+  if (px < m.x || py < m.y || px >= m.x + m.width || py >= m.y + m.height) {
+    c = row = nan;
+    return;
+  }
+  const GridWindow& w = r.window;
+  c = w.c0 + (px - m.x + 0.5) / m.width * (w.c1 - w.c0);
+  row = w.r1 - (py - m.y + 0.5) / m.height * (w.r1 - w.r0);
+}
+
+void grid_to_pixel(const QuicklookResult& r, double c, double row, int& px, int& py) {
+  const PixelBox& m = r.map;
+  const GridWindow& w = r.window;
+  px = m.x + static_cast<int>(std::floor((c - w.c0) / (w.c1 - w.c0) * m.width));
+  py = m.y + static_cast<int>(std::floor((w.r1 - row) / (w.r1 - w.r0) * m.height));
 }
 
 namespace {
@@ -846,12 +945,18 @@ std::vector<double> edges_of(const std::vector<double>& c) {
   return e;
 }
 
-CellAxis latitude_cells(const std::vector<double>& lat) {
+/// Cells of a strictly monotonic axis (2 or more values, either direction).
+CellAxis cells_of(const std::vector<double>& values) {
   CellAxis a;
-  a.descending = lat[1] < lat[0];
-  std::vector<double> c = lat;
+  a.descending = values[1] < values[0];
+  std::vector<double> c = values;
   if (a.descending) std::reverse(c.begin(), c.end());
   a.edges = edges_of(c);
+  return a;
+}
+
+CellAxis latitude_cells(const std::vector<double>& lat) {
+  CellAxis a = cells_of(lat);
   a.edges.front() = std::max(a.edges.front(), -90.0);
   a.edges.back() = std::min(a.edges.back(), 90.0);
   return a;
@@ -936,6 +1041,8 @@ class Ink {
     cairo_text_extents(cr_, "0", &te);
     cap_ = -te.y_bearing;
   }
+  /// Height of the digits in the current font (pixels).
+  [[nodiscard]] double cap() const { return cap_; }
   [[nodiscard]] double width(const std::string& text) const {
     const std::string t = clean_text(text, ascii_);
     cairo_text_extents_t te{};
@@ -948,6 +1055,21 @@ class Ink {
     const std::string t = clean_text(text, ascii_);
     cairo_move_to(cr_, x - ax * width(t), y + (1.0 - ay) * cap_);
     cairo_show_text(cr_, t.c_str());
+  }
+  /// Like show, in black on a white halo HALO pixels wide (text over the map).
+  void show_on_map(const std::string& text, double x, double y, double ax, double ay, double halo) {
+    const std::string t = clean_text(text, ascii_);
+    cairo_save(cr_);
+    cairo_new_path(cr_);
+    cairo_move_to(cr_, x - ax * width(t), y + (1.0 - ay) * cap_);
+    cairo_text_path(cr_, t.c_str());
+    cairo_set_source_rgba(cr_, 1.0, 1.0, 1.0, 0.85);
+    cairo_set_line_width(cr_, halo);
+    cairo_set_line_join(cr_, CAIRO_LINE_JOIN_ROUND);
+    cairo_stroke_preserve(cr_);
+    cairo_set_source_rgb(cr_, 0.0, 0.0, 0.0);
+    cairo_fill(cr_);
+    cairo_restore(cr_);
   }
 
  private:
@@ -1255,13 +1377,376 @@ void arrow_path(cairo_t* cr, double x, double y, double ex, double ey, double le
   }
 }
 
+// ---- projected and curvilinear maps (quicklook.hpp "Projected and curvilinear grids") ----
+
+/// Latitude/longitude at grid coordinates of a projected or curvilinear map.
+class PlaneLocator {
+ public:
+  /// C_SIGN, R_SIGN: -1 when the map's column/row coordinate is the negated
+  /// index (2-D latitude/longitude drawn flipped so that north is up).
+  PlaneLocator(const CurvilinearGrid& g, double c_sign, double r_sign)
+      : g_(g), c_sign_(c_sign), r_sign_(r_sign) {
+    if (g.projected()) return;
+    const std::size_t n = g.ny() * g.nx();
+    unit_.resize(3 * n);
+    for (std::size_t k = 0; k < n; ++k) {
+      double sp = 0, cp = 0, sl = 0, cl = 0;
+      sincosd(g.lat_deg()[k], sp, cp);
+      sincosd(g.lon_deg()[k], sl, cl);
+      unit_[3 * k] = cp * cl;  // unit vector on the sphere (only its direction is used)
+      unit_[3 * k + 1] = cp * sl;
+      unit_[3 * k + 2] = sp;
+    }
+  }
+
+  /// LAT_DEG, LON_DEG (-180..180) at grid coordinates (C, R): PROJ's inverse
+  /// for a projection (NaN outside its domain); for 2-D latitude/longitude,
+  /// C and R are fractional column and row indices, and the position is the
+  /// bilinear blend of the four surrounding nodes' unit vectors, normalised
+  /// (extrapolated beyond the outer nodes).
+  void at(double c, double r, double& lat_deg, double& lon_deg) const {
+    if (const Projection* p = g_.projection()) {
+      p->inverse(c, r, lat_deg, lon_deg);
+      return;
+    }
+    const std::size_t nx = g_.nx();
+    c *= c_sign_;
+    r *= r_sign_;
+    const double i0 = std::clamp(std::floor(c), 0.0, static_cast<double>(nx - 2));
+    const double j0 = std::clamp(std::floor(r), 0.0, static_cast<double>(g_.ny() - 2));
+    const double t = c - i0, u = r - j0;
+    const auto k00 = static_cast<std::size_t>(j0) * nx + static_cast<std::size_t>(i0);
+    const std::size_t k01 = k00 + 1, k10 = k00 + nx, k11 = k10 + 1;
+    double v[3];
+    for (int q = 0; q < 3; ++q)
+      v[q] = (1 - t) * (1 - u) * unit_[3 * k00 + q] + t * (1 - u) * unit_[3 * k01 + q] +
+             (1 - t) * u * unit_[3 * k10 + q] + t * u * unit_[3 * k11 + q];
+    lat_deg = std::atan2(v[2], std::hypot(v[0], v[1])) / deg_to_rad;
+    lon_deg = std::atan2(v[1], v[0]) / deg_to_rad;
+  }
+
+ private:
+  const CurvilinearGrid& g_;
+  double c_sign_ = 1.0, r_sign_ = 1.0;
+  std::vector<double> unit_;  // 3 per node
+};
+
+/// Height / width of the ground covered by the rows [R0, R1] and columns
+/// [C0, C1] (index coordinates) of a curvilinear grid: the medians of the
+/// distances between row and column neighbours (on the unit sphere; only the
+/// ratio matters), sampled on at most about 64 x 64 nodes.
+double curvilinear_aspect(const CurvilinearGrid& g, const GridWindow& w) {
+  const std::size_t ny = g.ny(), nx = g.nx();
+  const std::size_t sj = std::max<std::size_t>(1, ny / 64), si = std::max<std::size_t>(1, nx / 64);
+  const auto angle = [&](std::size_t a, std::size_t b) {
+    double s1 = 0, c1 = 0, s2 = 0, c2 = 0;
+    sincosd(g.lat_deg()[a], s1, c1);
+    sincosd(g.lat_deg()[b], s2, c2);
+    const double dl = (g.lon_deg()[b] - g.lon_deg()[a]) * deg_to_rad;
+    const double h = std::pow(std::sin(0.5 * (g.lat_deg()[b] - g.lat_deg()[a]) * deg_to_rad), 2) +
+                     c1 * c2 * std::pow(std::sin(0.5 * dl), 2);  // haversine
+    return 2.0 * std::asin(std::min(1.0, std::sqrt(h)));
+  };
+  std::vector<double> along_rows, along_cols;  // column steps, row steps
+  for (std::size_t j = 0; j < ny; j += sj)
+    for (std::size_t i = 0; i < nx; i += si) {
+      const std::size_t k = j * nx + i;
+      if (i + 1 < nx) along_rows.push_back(angle(k, k + 1));
+      if (j + 1 < ny) along_cols.push_back(angle(k, k + nx));
+    }
+  const double dx = percentile(along_rows, 50.0), dy = percentile(along_cols, 50.0);
+  if (!(dx > 0.0) || !(dy > 0.0)) return (w.r1 - w.r0) / (w.c1 - w.c0);
+  return (w.r1 - w.r0) * dy / ((w.c1 - w.c0) * dx);
+}
+
+/// Graticule of a projected or curvilinear map: latitude and longitude on a
+/// lattice of pixels, lines by contouring each lattice square (marching
+/// squares, linear along the square's edges), labels where lines cross the
+/// frame.
+class PlaneGraticule {
+ public:
+  PlaneGraticule(const PlaneLocator& locator, const PixelBox& m, const GridWindow& w, double s)
+      : loc_(locator), m_(m), w_(w), s_(s) {
+    const int step = std::max(2, px_round(4 * s));
+    for (int k = 0; k < m.width; k += step) xs_.push_back(k);
+    xs_.push_back(m.width);
+    for (int k = 0; k < m.height; k += step) ys_.push_back(k);
+    ys_.push_back(m.height);
+    lat_.resize(xs_.size() * ys_.size());
+    lon_.resize(lat_.size());
+    for (std::size_t j = 0; j < ys_.size(); ++j)
+      for (std::size_t i = 0; i < xs_.size(); ++i) {
+        double la = 0, lo = 0;
+        position(xs_[i], ys_[j], la, lo);
+        lat_[j * xs_.size() + i] = la;
+        lon_[j * xs_.size() + i] = lo;
+      }
+    // Steps: the median gradient (degrees per pixel) over the lattice;
+    // lines about 60 px apart in latitude and 100 px in longitude at 1000 px
+    // (meridians converge towards a pole; common practice, no source).
+    std::vector<double> g_lat, g_lon;
+    for (std::size_t j = 0; j + 1 < ys_.size(); ++j)
+      for (std::size_t i = 0; i + 1 < xs_.size(); ++i) {
+        const std::size_t a = j * xs_.size() + i, b = a + 1, d = a + xs_.size();
+        const double hx = xs_[i + 1] - xs_[i], hy = ys_[j + 1] - ys_[j];
+        if (!std::isfinite(lat_[a] + lat_[b] + lat_[d] + lon_[a] + lon_[b] + lon_[d])) continue;
+        g_lat.push_back(std::hypot((lat_[b] - lat_[a]) / hx, (lat_[d] - lat_[a]) / hy));
+        const double ex = std::remainder(lon_[b] - lon_[a], 360.0);
+        const double ey = std::remainder(lon_[d] - lon_[a], 360.0);
+        if (std::fabs(ex) < 30.0 && std::fabs(ey) < 30.0)
+          g_lon.push_back(std::hypot(ex / hx, ey / hy));
+      }
+    if (!g_lat.empty()) lat_step_ = choose(percentile(g_lat, 50.0), 60 * s);
+    if (!g_lon.empty()) lon_step_ = choose(percentile(g_lon, 50.0), 100 * s);
+  }
+
+  [[nodiscard]] double lat_step() const { return lat_step_; }
+  [[nodiscard]] double lon_step() const { return lon_step_; }
+
+  /// Adds the line segments to CR's path (pixels).
+  void add_lines(cairo_t* cr) const {
+    const std::size_t n = xs_.size();
+    for (std::size_t j = 0; j + 1 < ys_.size(); ++j)
+      for (std::size_t i = 0; i + 1 < n; ++i) {
+        const std::size_t k[4] = {j * n + i, j * n + i + 1, (j + 1) * n + i + 1, (j + 1) * n + i};
+        double px[4], py[4], la[4], lo[4];
+        bool ok = true;
+        for (int q = 0; q < 4; ++q) {
+          px[q] = m_.x + xs_[k[q] % n];
+          py[q] = m_.y + ys_[k[q] / n];
+          la[q] = lat_[k[q]];
+          lo[q] = lon_[k[q]];
+          ok = ok && std::isfinite(la[q]) && std::isfinite(lo[q]);
+        }
+        if (!ok) continue;
+        if (lat_step_ > 0.0) {
+          const double lo_v = *std::min_element(la, la + 4), hi_v = *std::max_element(la, la + 4);
+          for (double q = std::ceil(lo_v / lat_step_); q * lat_step_ <= hi_v; q += 1.0)
+            if (std::fabs(q * lat_step_) < 90.0 - 1e-9) contour(cr, px, py, la, q * lat_step_);
+        }
+        if (lon_step_ > 0.0) {
+          for (int q = 1; q < 4; ++q) lo[q] = lo[0] + std::remainder(lo[q] - lo[0], 360.0);
+          const double lo_v = *std::min_element(lo, lo + 4), hi_v = *std::max_element(lo, lo + 4);
+          if (hi_v - lo_v > 30.0) continue;  // a pole inside the square
+          for (double q = std::ceil(lo_v / lon_step_); q * lon_step_ <= hi_v; q += 1.0)
+            contour(cr, px, py, lo, q * lon_step_);
+        }
+      }
+  }
+
+  /// A label placed on the map itself, drawn last (over the arrows).
+  struct MapLabel {
+    std::string text;
+    double x, y;
+  };
+
+  /// Labels (and ticks) where lines cross the frame; labels of parallels
+  /// that never reach it go to ON_MAP. Returns how many labels in all.
+  std::size_t add_labels(cairo_t* cr, Ink& ink, double frame, double tick, int page_width,
+                         std::vector<MapLabel>& on_map) const {
+    struct Candidate {
+      bool is_lon;
+      double value;
+      int edge;    // 0 bottom, 1 left, 2 top, 3 right
+      double pos;  // pixel along the edge
+    };
+    std::vector<Candidate> found;
+    for (int edge = 0; edge < 4; ++edge) {
+      const bool horizontal = edge == 0 || edge == 2;
+      const int len = horizontal ? m_.width : m_.height;
+      double prev_la = nan, prev_lo = nan, prev_p = nan;
+      for (int p = 0; p < len; ++p) {
+        const double t = p + 0.5;
+        double la = 0, lo = 0;
+        if (horizontal)
+          position(t, edge == 0 ? m_.height : 0.0, la, lo);
+        else
+          position(edge == 1 ? 0.0 : m_.width, t, la, lo);
+        if (std::isfinite(prev_la) && std::isfinite(la) && lat_step_ > 0.0) {
+          const double a = prev_la, b = la;
+          for (double q = std::ceil(std::min(a, b) / lat_step_); q * lat_step_ <= std::max(a, b);
+               q += 1.0) {
+            const double L = q * lat_step_;
+            if (L == std::min(a, b) || std::fabs(L) >= 90.0 - 1e-9) continue;
+            found.push_back({false, L, edge, prev_p + (L - a) / (b - a) * (t - prev_p)});
+          }
+        }
+        if (std::isfinite(prev_lo) && std::isfinite(lo) && lon_step_ > 0.0) {
+          const double a = prev_lo, b = prev_lo + std::remainder(lo - prev_lo, 360.0);
+          if (std::fabs(b - a) < 30.0)
+            for (double q = std::ceil(std::min(a, b) / lon_step_); q * lon_step_ <= std::max(a, b);
+                 q += 1.0) {
+              const double L = q * lon_step_;
+              if (L == std::min(a, b)) continue;
+              found.push_back({true, L, edge, prev_p + (L - a) / (b - a) * (t - prev_p)});
+            }
+        }
+        prev_la = la;
+        prev_lo = lo;
+        prev_p = t;
+      }
+    }
+    // Priority: longitudes below and above, latitudes left and right, then the rest.
+    const std::pair<int, bool> order[8] = {{0, true},  {1, false}, {2, true},  {3, false},
+                                           {0, false}, {1, true},  {2, false}, {3, true}};
+    struct Box {
+      double x0, y0, x1, y1;
+    };
+    std::vector<Box> placed;
+    std::vector<std::pair<bool, double>> labelled;
+    const double gap = 3 * s_;
+    const auto decimals = [](double step) {
+      return step >= 1.0 - 1e-9 ? 0 : step >= 0.1 - 1e-9 ? 1 : 2;
+    };
+    ink.font(12.5 * s_);
+    const double cap = ink.cap();
+    std::size_t count = 0;
+    for (const auto& [edge, is_lon] : order)
+      for (const Candidate& c : found) {
+        if (c.edge != edge || c.is_lon != is_lon) continue;
+        const double key = is_lon ? std::remainder(c.value, 360.0) : c.value;
+        const bool done = std::any_of(labelled.begin(), labelled.end(), [&](const auto& l) {
+          return l.first == is_lon && std::fabs(l.second - key) < 1e-9;
+        });
+        if (done) continue;
+        const std::string text =
+            degree_label(c.value, is_lon, decimals(is_lon ? lon_step_ : lat_step_), ink);
+        const double w = ink.width(text);
+        const double out = frame + tick + 4 * s_;
+        double x = 0, y = 0, ax = 0, ay = 0;
+        Box b{};
+        if (edge == 0 || edge == 2) {
+          x = std::floor(m_.x + c.pos) + 0.5;
+          y = edge == 0 ? m_.y + m_.height + out : m_.y - out;
+          ax = 0.5;
+          ay = edge == 0 ? 0.0 : 1.0;
+          b = {x - 0.5 * w, edge == 0 ? y : y - cap, x + 0.5 * w, edge == 0 ? y + cap : y};
+        } else {
+          y = std::floor(m_.y + c.pos) + 0.5;
+          x = edge == 1 ? m_.x - out : m_.x + m_.width + out;
+          ax = edge == 1 ? 1.0 : 0.0;
+          ay = 0.5;
+          b = {edge == 1 ? x - w : x, y - 0.5 * cap, edge == 1 ? x : x + w, y + 0.5 * cap};
+        }
+        if (b.x0 < 1.0 || b.x1 > page_width - 1.0) continue;
+        const bool clash = std::any_of(placed.begin(), placed.end(), [&](const Box& q) {
+          return b.x0 < q.x1 + gap && q.x0 < b.x1 + gap && b.y0 < q.y1 + gap && q.y0 < b.y1 + gap;
+        });
+        if (clash) continue;
+        placed.push_back(b);
+        labelled.emplace_back(is_lon, key);
+        ink.show(text, x, y, ax, ay);
+        // Tick from the frame outwards.
+        if (edge == 0 || edge == 2) {
+          const double y0 = edge == 0 ? m_.y + m_.height + frame : m_.y - frame;
+          cairo_move_to(cr, x, y0);
+          cairo_line_to(cr, x, edge == 0 ? y0 + tick : y0 - tick);
+        } else {
+          const double x0 = edge == 1 ? m_.x - frame : m_.x + m_.width + frame;
+          cairo_move_to(cr, x0, y);
+          cairo_line_to(cr, edge == 1 ? x0 - tick : x0 + tick, y);
+        }
+        cairo_stroke(cr);
+        ++count;
+      }
+    // Parallels that never reach the frame (around a pole in view): labelled
+    // on the map where they cross the lattice column nearest its middle,
+    // lowest crossing first.
+    if (lat_step_ > 0.0) {
+      const std::size_t n = xs_.size();
+      const std::size_t mid = n / 2;
+      double lo_v = 90.0, hi_v = -90.0;
+      for (double v : lat_)
+        if (std::isfinite(v)) {
+          lo_v = std::min(lo_v, v);
+          hi_v = std::max(hi_v, v);
+        }
+      for (double q = std::ceil(lo_v / lat_step_); q * lat_step_ <= hi_v; q += 1.0) {
+        const double L = q * lat_step_;
+        if (std::fabs(L) >= 90.0 - 1e-9) continue;
+        const bool done = std::any_of(labelled.begin(), labelled.end(), [&](const auto& l) {
+          return !l.first && std::fabs(l.second - L) < 1e-9;
+        });
+        if (done) continue;
+        for (std::size_t j = ys_.size() - 1; j > 0; --j) {
+          const double a = lat_[j * n + mid], b = lat_[(j - 1) * n + mid];
+          if (!std::isfinite(a) || !std::isfinite(b) || (a > L) == (b > L)) continue;
+          const double y = m_.y + ys_[j] + (L - a) / (b - a) * (ys_[j - 1] - ys_[j]);
+          const double x = m_.x + xs_[mid];
+          const std::string text = degree_label(L, false, decimals(lat_step_), ink);
+          const double w = ink.width(text);
+          const Box b2{x - 0.5 * w, y - 0.5 * cap, x + 0.5 * w, y + 0.5 * cap};
+          if (b2.x0 < m_.x || b2.x1 > m_.x + m_.width || b2.y0 < m_.y || b2.y1 > m_.y + m_.height)
+            break;
+          const bool clash = std::any_of(placed.begin(), placed.end(), [&](const Box& q2) {
+            return b2.x0 < q2.x1 + gap && q2.x0 < b2.x1 + gap && b2.y0 < q2.y1 + gap &&
+                   q2.y0 < b2.y1 + gap;
+          });
+          if (clash) break;
+          placed.push_back(b2);
+          labelled.emplace_back(false, L);
+          on_map.push_back({text, x, y});
+          ++count;
+          break;
+        }
+      }
+    }
+    return count;
+  }
+
+ private:
+  /// Position at map-local pixel coordinates (X right, Y down; 0..width, 0..height).
+  void position(double x, double y, double& lat, double& lon) const {
+    const double c = w_.c0 + x / m_.width * (w_.c1 - w_.c0);
+    const double r = w_.r1 - y / m_.height * (w_.r1 - w_.r0);
+    loc_.at(c, r, lat, lon);
+  }
+
+  static double choose(double deg_per_px, double min_px) {
+    for (double st : {0.01, 0.02, 0.05, 0.1, 0.2, 0.5, 1.0, 2.0, 5.0, 10.0, 15.0, 30.0, 45.0})
+      if (st / deg_per_px >= min_px) return st;
+    return 90.0;
+  }
+
+  /// Adds the segment(s) of the level line LEVEL through the square with
+  /// corners (PX, PY) (in order around it) and values V.
+  static void contour(cairo_t* cr, const double* px, const double* py, const double* v,
+                      double level) {
+    double cx[4], cy[4];
+    int n = 0;
+    for (int k = 0; k < 4; ++k) {
+      const int q = (k + 1) % 4;
+      if ((v[k] > level) == (v[q] > level)) continue;
+      const double t = (level - v[k]) / (v[q] - v[k]);
+      cx[n] = px[k] + t * (px[q] - px[k]);
+      cy[n] = py[k] + t * (py[q] - py[k]);
+      ++n;
+    }
+    for (int k = 0; k + 1 < n; k += 2) {
+      cairo_move_to(cr, cx[k], cy[k]);
+      cairo_line_to(cr, cx[k + 1], cy[k + 1]);
+    }
+  }
+
+  const PlaneLocator& loc_;
+  PixelBox m_;
+  GridWindow w_;
+  double s_;
+  std::vector<double> xs_, ys_, lat_, lon_;  // lattice (map-local pixels) and positions
+  double lat_step_ = 0.0, lon_step_ = 0.0;
+};
+
 }  // namespace
 
 QuicklookResult write_quicklook(const MapData& map, const QuicklookOptions& o,
                                 const std::string& png_path) {
   if (o.width_px < 320 || o.width_px > 4096)
     throw UsageError("--width: " + std::to_string(o.width_px) + " px is outside 320..4096");
-  const std::size_t ny = map.lat_deg.size(), nx = map.lon_deg.size();
+  const bool plane = map.grid_kind != GridKind::lat_lon;
+  if (plane && !map.plane)
+    throw std::invalid_argument("write_quicklook: a projected or curvilinear map without its grid");
+  const std::size_t ny = plane ? map.plane->ny() : map.lat_deg.size();
+  const std::size_t nx = plane ? map.plane->nx() : map.lon_deg.size();
   if (ny < 2 || nx < 2 || map.values.ny != ny || map.values.nx != nx)
     throw std::invalid_argument("write_quicklook: values do not match the coordinates");
   if (o.arrows && (map.u.ny != ny || map.u.nx != nx || map.v.ny != ny || map.v.nx != nx))
@@ -1270,33 +1755,95 @@ QuicklookResult write_quicklook(const MapData& map, const QuicklookOptions& o,
                                    "output of `seatilt currents`)"));
   check_output(png_path, o.force, map.path);
 
-  bool periodic = false;
-  try {
-    periodic = Grid(map.lat_deg, map.lon_deg).periodic();
-  } catch (const std::invalid_argument& e) {
-    throw InputError(input_message(map.path, map.variable, e.what()));
-  }
-  const CellAxis lat = latitude_cells(map.lat_deg);
-  const LonCells lon = longitude_cells(map.lon_deg, periodic);
-
   QuicklookResult res;
   res.scale = map.scale;
-  res.region = o.region.value_or(
-      Region{lon.cells.edges.front(), lon.cells.edges.back(), lat.edges.front(), lat.edges.back()});
-  const Region& r = res.region;
-  const double lon_span = r.lon1 - r.lon0, lat_span = r.lat1 - r.lat0;
+  res.grid_kind = map.grid_kind;
+
+  // ---- cells along the page axes and the part of the grid drawn ----
+  // Lat/lon maps: columns are longitudes, rows latitudes. Plane maps: columns
+  // follow the column coordinate c (x, or the column index) to the right,
+  // rows the row coordinate r (y, or the row index) upwards.
+  CellAxis lat, c_cells, r_cells;
+  double c_sign = 1.0, r_sign = 1.0;
+  LonCells lon;
+  double aspect = 1.0;
+  if (!plane) {
+    bool periodic = false;
+    try {
+      periodic = Grid(map.lat_deg, map.lon_deg).periodic();
+    } catch (const std::invalid_argument& e) {
+      throw InputError(input_message(map.path, map.variable, e.what()));
+    }
+    lat = latitude_cells(map.lat_deg);
+    lon = longitude_cells(map.lon_deg, periodic);
+    res.region = o.region.value_or(Region{lon.cells.edges.front(), lon.cells.edges.back(),
+                                          lat.edges.front(), lat.edges.back()});
+    const Region& r = res.region;
+    // [5] equidistant cylindrical, standard parallel at the centre latitude:
+    // x = lon cos(lat_c), y = lat, so height/width = dlat / (dlon cos(lat_c)).
+    const double cos_c = std::max(std::cos(0.5 * (r.lat0 + r.lat1) * deg_to_rad), 0.05);
+    aspect = std::clamp((r.lat1 - r.lat0) / ((r.lon1 - r.lon0) * cos_c), 0.2, 1.5);
+  } else {
+    const CurvilinearGrid& g = *map.plane;
+    // 2-D latitude/longitude: indices, negated where that puts east to the
+    // right and north up at the centre node.
+    std::vector<double> cc = g.col_coord(), rc = g.row_coord();
+    if (!g.projected()) {
+      const DirectionalMetric& b = g.metric(ny / 2, nx / 2);
+      if (b.e_c < 0.0) {  // columns run west
+        c_sign = -1.0;
+        for (double& v : cc) v = -v;
+      }
+      if (b.n_r < 0.0) {  // rows run south
+        r_sign = -1.0;
+        for (double& v : rc) v = -v;
+      }
+    }
+    c_cells = cells_of(cc);
+    r_cells = cells_of(rc);
+    GridWindow& w = res.window;
+    w = {c_cells.edges.front(), c_cells.edges.back(), r_cells.edges.front(), r_cells.edges.back()};
+    if (o.region) {
+      // The smallest rectangle of cells holding every cell centre inside the box.
+      const Region& r = *o.region;
+      const auto position = [](const CellAxis& a, std::size_t index) {
+        const std::size_t n = a.edges.size() - 1;
+        return a.descending ? n - 1 - index : index;  // ascending position of a file index
+      };
+      std::size_t c_lo = nx, c_hi = 0, r_lo = ny, r_hi = 0;
+      for (std::size_t j = 0; j < ny; ++j)
+        for (std::size_t i = 0; i < nx; ++i) {
+          const double la = g.lat_deg(j, i);
+          const double lo0 = g.lon_deg(j, i);
+          const double lo = lo0 - 360.0 * std::floor((lo0 - r.lon0) / 360.0);
+          if (!(la >= r.lat0 && la <= r.lat1 && lo <= r.lon1)) continue;
+          const std::size_t pc = position(c_cells, i), pr = position(r_cells, j);
+          c_lo = std::min(c_lo, pc);
+          c_hi = std::max(c_hi, pc);
+          r_lo = std::min(r_lo, pr);
+          r_hi = std::max(r_hi, pr);
+        }
+      if (c_lo > c_hi) {
+        char buf[200];
+        std::snprintf(buf, sizeof buf,
+                      "--region %g,%g,%g,%g does not overlap the grid (no cell centre inside; %s)",
+                      r.lon0, r.lon1, r.lat0, r.lat1, map.path.c_str());
+        throw UsageError(buf);
+      }
+      w = {c_cells.edges[c_lo], c_cells.edges[c_hi + 1], r_cells.edges[r_lo],
+           r_cells.edges[r_hi + 1]};
+    }
+    aspect = g.projected() ? (w.r1 - w.r0) / (w.c1 - w.c0) : curvilinear_aspect(g, w);
+    aspect = std::clamp(aspect, 0.2, 1.5);
+  }
 
   // ---- page layout (s = size scale) ----
   const int W = o.width_px;
   const double s = std::max(W / 1000.0, 0.55);
-  // [5] equidistant cylindrical, standard parallel at the centre latitude:
-  // x = lon cos(lat_c), y = lat, so height/width = dlat / (dlon cos(lat_c)).
-  const double cos_c = std::max(std::cos(0.5 * (r.lat0 + r.lat1) * deg_to_rad), 0.05);
-  const double aspect = std::clamp(lat_span / (lon_span * cos_c), 0.2, 1.5);
   PixelBox& m = res.map;
   m.x = px_round(66 * s);
-  m.y = px_round(66 * s);
-  m.width = W - m.x - px_round(30 * s);
+  m.y = px_round((plane ? 88 : 66) * s);  // plane maps: room for labels above the frame
+  m.width = W - m.x - px_round((plane ? 66 : 30) * s);
   m.height = std::max(1, px_round(m.width * aspect));
   PixelBox& bar = res.colour_bar;
   bar.height = std::max(6, px_round(16 * s));
@@ -1310,14 +1857,24 @@ QuicklookResult write_quicklook(const MapData& map, const QuicklookOptions& o,
   // ---- grid cell under each map pixel ----
   std::vector<long> col(static_cast<std::size_t>(m.width)), row(static_cast<std::size_t>(m.height));
   for (int px = 0; px < m.width; ++px) {
-    double lo = 0, la = 0;
-    pixel_to_lonlat(res, m.x + px, m.y, lo, la);
-    col[static_cast<std::size_t>(px)] = lon.find(lo);
+    double a = 0, b = 0;
+    if (plane) {
+      pixel_to_grid(res, m.x + px, m.y, a, b);
+      col[static_cast<std::size_t>(px)] = c_cells.find(a);
+    } else {
+      pixel_to_lonlat(res, m.x + px, m.y, a, b);
+      col[static_cast<std::size_t>(px)] = lon.find(a);
+    }
   }
   for (int py = 0; py < m.height; ++py) {
-    double lo = 0, la = 0;
-    pixel_to_lonlat(res, m.x, m.y + py, lo, la);
-    row[static_cast<std::size_t>(py)] = lat.find(la);
+    double a = 0, b = 0;
+    if (plane) {
+      pixel_to_grid(res, m.x, m.y + py, a, b);
+      row[static_cast<std::size_t>(py)] = r_cells.find(b);
+    } else {
+      pixel_to_lonlat(res, m.x, m.y + py, a, b);
+      row[static_cast<std::size_t>(py)] = lat.find(b);
+    }
   }
   const auto inside = [](const std::vector<long>& v) {
     std::vector<long> u;
@@ -1329,10 +1886,26 @@ QuicklookResult write_quicklook(const MapData& map, const QuicklookOptions& o,
   };
   const std::vector<long> cols = inside(col), rows = inside(row);
   if (cols.empty() || rows.empty()) {
+    const Region& r = res.region;
     char buf[160];
     std::snprintf(buf, sizeof buf, "--region %g,%g,%g,%g does not overlap the grid (%s)", r.lon0,
                   r.lon1, r.lat0, r.lat1, map.path.c_str());
     throw UsageError(buf);
+  }
+  if (plane) {  // latitude/longitude range of the nodes drawn (for messages)
+    Region& r = res.region;
+    r = {180.0, -180.0, 90.0, -90.0};
+    for (long j : rows)
+      for (long i : cols) {
+        const double la =
+            map.plane->lat_deg(static_cast<std::size_t>(j), static_cast<std::size_t>(i));
+        const double lo = std::remainder(
+            map.plane->lon_deg(static_cast<std::size_t>(j), static_cast<std::size_t>(i)), 360.0);
+        r.lat0 = std::min(r.lat0, la);
+        r.lat1 = std::max(r.lat1, la);
+        r.lon0 = std::min(r.lon0, lo);
+        r.lon1 = std::max(r.lon1, lo);
+      }
   }
 
   // ---- colour range from the cells in view ----
@@ -1385,37 +1958,56 @@ QuicklookResult write_quicklook(const MapData& map, const QuicklookOptions& o,
   cairo_surface_mark_dirty(surface.get());
 
   // ---- graticule, frame ----
-  double lon_step = graticule_step(lon_span, m.width, 75 * s);
-  double lat_step = graticule_step(lat_span, m.height, 60 * s);
-  const double common = std::max(lon_step, lat_step);
-  if (line_count(r.lon0, r.lon1, common) >= 2 && line_count(r.lat0, r.lat1, common) >= 2)
-    lon_step = lat_step = common;
-  std::vector<std::pair<double, double>> lon_lines, lat_lines;  // (degrees, pixel)
-  for (double k = std::ceil(r.lon0 / lon_step - 1e-9); k * lon_step <= r.lon1 + 1e-9 * lon_step;
-       k += 1) {
-    const double x = m.x + (k * lon_step - r.lon0) / lon_span * m.width;
-    if (x >= m.x && x < m.x + m.width) lon_lines.emplace_back(k * lon_step, std::floor(x) + 0.5);
-  }
-  for (double k = std::ceil(r.lat0 / lat_step - 1e-9); k * lat_step <= r.lat1 + 1e-9 * lat_step;
-       k += 1) {
-    const double y = m.y + (r.lat1 - k * lat_step) / lat_span * m.height;
-    if (y >= m.y && y < m.y + m.height) lat_lines.emplace_back(k * lat_step, std::floor(y) + 0.5);
-  }
   const double thin = std::max(1.0, std::round(s));
-  cairo_set_line_width(cr, thin);
-  set_colour(cr, 0.0, 0.3);
-  for (const auto& [v, x] : lon_lines) {
-    cairo_move_to(cr, x, m.y);
-    cairo_line_to(cr, x, m.y + m.height);
-  }
-  for (const auto& [v, y] : lat_lines) {
-    cairo_move_to(cr, m.x, y);
-    cairo_line_to(cr, m.x + m.width, y);
-  }
-  cairo_stroke(cr);
-  // Frames lie just outside their boxes, so every pixel inside keeps its colour.
   const double frame = std::max(1.0, std::round(1.2 * s));
   const double tick = std::round(5 * s);
+  std::optional<PlaneLocator> locator;
+  std::optional<PlaneGraticule> plane_lines;
+  std::vector<PlaneGraticule::MapLabel> map_labels;
+  std::vector<std::pair<double, double>> lon_lines, lat_lines;  // (degrees, pixel)
+  double lon_step = 0.0, lat_step = 0.0;
+  if (plane) {
+    locator.emplace(*map.plane, c_sign, r_sign);
+    plane_lines.emplace(*locator, m, res.window, s);
+    cairo_save(cr);
+    cairo_rectangle(cr, m.x, m.y, m.width, m.height);
+    cairo_clip(cr);
+    cairo_set_line_width(cr, thin);
+    set_colour(cr, 0.0, 0.3);
+    plane_lines->add_lines(cr);
+    cairo_stroke(cr);
+    cairo_restore(cr);
+  } else {
+    const Region& r = res.region;
+    const double lon_span = r.lon1 - r.lon0, lat_span = r.lat1 - r.lat0;
+    lon_step = graticule_step(lon_span, m.width, 75 * s);
+    lat_step = graticule_step(lat_span, m.height, 60 * s);
+    const double common = std::max(lon_step, lat_step);
+    if (line_count(r.lon0, r.lon1, common) >= 2 && line_count(r.lat0, r.lat1, common) >= 2)
+      lon_step = lat_step = common;
+    for (double k = std::ceil(r.lon0 / lon_step - 1e-9); k * lon_step <= r.lon1 + 1e-9 * lon_step;
+         k += 1) {
+      const double x = m.x + (k * lon_step - r.lon0) / lon_span * m.width;
+      if (x >= m.x && x < m.x + m.width) lon_lines.emplace_back(k * lon_step, std::floor(x) + 0.5);
+    }
+    for (double k = std::ceil(r.lat0 / lat_step - 1e-9); k * lat_step <= r.lat1 + 1e-9 * lat_step;
+         k += 1) {
+      const double y = m.y + (r.lat1 - k * lat_step) / lat_span * m.height;
+      if (y >= m.y && y < m.y + m.height) lat_lines.emplace_back(k * lat_step, std::floor(y) + 0.5);
+    }
+    cairo_set_line_width(cr, thin);
+    set_colour(cr, 0.0, 0.3);
+    for (const auto& [v, x] : lon_lines) {
+      cairo_move_to(cr, x, m.y);
+      cairo_line_to(cr, x, m.y + m.height);
+    }
+    for (const auto& [v, y] : lat_lines) {
+      cairo_move_to(cr, m.x, y);
+      cairo_line_to(cr, m.x + m.width, y);
+    }
+    cairo_stroke(cr);
+  }
+  // Frames lie just outside their boxes, so every pixel inside keeps its colour.
   set_colour(cr, 0.0);
   cairo_set_line_width(cr, frame);
   cairo_rectangle(cr, m.x - 0.5 * frame, m.y - 0.5 * frame, m.width + frame, m.height + frame);
@@ -1437,14 +2029,22 @@ QuicklookResult write_quicklook(const MapData& map, const QuicklookOptions& o,
   const auto decimals = [](double step) {
     return step >= 1.0 - 1e-9 ? 0 : step >= 0.1 - 1e-9 ? 1 : 2;
   };
-  ink.font(12.5 * s);
-  for (const auto& [v, x] : lon_lines)
-    ink.show(degree_label(v, true, decimals(lon_step), ink), x,
-             m.y + m.height + frame + tick + 4 * s, 0.5, 0.0);
-  for (const auto& [v, y] : lat_lines)
-    ink.show(degree_label(v, false, decimals(lat_step), ink), m.x - frame - tick - 4 * s, y, 1.0,
-             0.5);
+  if (plane) {
+    set_colour(cr, 0.0);
+    cairo_set_line_width(cr, thin);
+    res.graticule_labels = plane_lines->add_labels(cr, ink, frame, tick, W, map_labels);
+  } else {
+    ink.font(12.5 * s);
+    for (const auto& [v, x] : lon_lines)
+      ink.show(degree_label(v, true, decimals(lon_step), ink), x,
+               m.y + m.height + frame + tick + 4 * s, 0.5, 0.0);
+    for (const auto& [v, y] : lat_lines)
+      ink.show(degree_label(v, false, decimals(lat_step), ink), m.x - frame - tick - 4 * s, y, 1.0,
+               0.5);
+    res.graticule_labels = lon_lines.size() + lat_lines.size();
+  }
 
+  set_colour(cr, 0.0);
   const double avail = W - m.x - 12 * s;
   double title_size = 21 * s;
   const std::string title = map.date.empty()
@@ -1458,6 +2058,8 @@ QuicklookResult write_quicklook(const MapData& map, const QuicklookOptions& o,
     parts.push_back("time step " + std::to_string(map.time_index) + " (0.." +
                     std::to_string(map.time_steps - 1) + ")");
   parts.push_back(base_name(map.path) + ": " + map.variable);
+  if (plane)
+    parts.push_back((map.grid_name.empty() ? std::string("projected") : map.grid_name) + " grid");
   parts.push_back(res.range_from_percentiles
                       ? std::string("colours: ") + ink.pick("2nd–98th", "2nd-98th") +
                             " percentile" +
@@ -1521,23 +2123,39 @@ QuicklookResult write_quicklook(const MapData& map, const QuicklookOptions& o,
     const int d = std::max(14, px_round(32 * s));
     std::vector<Arrow> arrows;
     std::vector<bool> used(ny * nx, false);  // one arrow per cell when cells are larger than d
+    const Region& r = res.region;
+    const GridWindow& w = res.window;
     for (int py = d / 2; py < m.height; py += d) {
       const long j = row[static_cast<std::size_t>(py)];
       if (j < 0) continue;
-      // Direction on the map: east moves lon by u/(R cos(lat)), north lat by v/R.
+      // Lat/lon maps: east moves lon by u/(R cos(lat)), north lat by v/R.
       const double coslat =
-          std::max(std::cos(map.lat_deg[static_cast<std::size_t>(j)] * deg_to_rad), 0.05);
+          plane ? 1.0
+                : std::max(std::cos(map.lat_deg[static_cast<std::size_t>(j)] * deg_to_rad), 0.05);
       for (int px = d / 2; px < m.width; px += d) {
         const long i = col[static_cast<std::size_t>(px)];
         if (i < 0) continue;
-        const double u = map.u.at(static_cast<std::size_t>(j), static_cast<std::size_t>(i));
-        const double v = map.v.at(static_cast<std::size_t>(j), static_cast<std::size_t>(i));
+        const auto jj = static_cast<std::size_t>(j), ii = static_cast<std::size_t>(i);
+        const double u = map.u.at(jj, ii), v = map.v.at(jj, ii);
         if (!std::isfinite(u) || !std::isfinite(v) || (u == 0.0 && v == 0.0)) continue;
-        const std::size_t cell = static_cast<std::size_t>(j) * nx + static_cast<std::size_t>(i);
+        const std::size_t cell = jj * nx + ii;
         if (used[cell]) continue;
+        double ex = 0.0, ey = 0.0;
+        if (plane) {
+          // Plane maps: (dc/dt, dr/dt) = (e_c u + n_c v, e_r u + n_r v) with the
+          // node's metric (grid.hpp DirectionalMetric; c, r per metre), then
+          // pixels per grid unit on each page axis (y down).
+          const DirectionalMetric& b = map.plane->metric(jj, ii);
+          if (!std::isfinite(b.e_c)) continue;  // a pole: no east
+          ex = c_sign * (b.e_c * u + b.n_c * v) * m.width / (w.c1 - w.c0);
+          ey = -r_sign * (b.e_r * u + b.n_r * v) * m.height / (w.r1 - w.r0);
+        } else {
+          ex = u / coslat * m.width / (r.lon1 - r.lon0);
+          ey = -v * m.height / (r.lat1 - r.lat0);
+        }
+        if (!(std::hypot(ex, ey) > 0.0)) continue;
         used[cell] = true;
-        arrows.push_back({m.x + px + 0.5, m.y + py + 0.5, u / coslat * m.width / lon_span,
-                          -v * m.height / lat_span, std::hypot(u, v)});
+        arrows.push_back({m.x + px + 0.5, m.y + py + 0.5, ex, ey, std::hypot(u, v)});
       }
     }
     if (!arrows.empty()) {
@@ -1549,6 +2167,9 @@ QuicklookResult write_quicklook(const MapData& map, const QuicklookOptions& o,
       // practice, no source).
       res.arrow_reference = nice_round(percentile(speeds, 99.0));
       const double ref_len = 0.9 * d;
+      cairo_save(cr);  // arrows stay inside the map box
+      cairo_rectangle(cr, m.x, m.y, m.width, m.height);
+      cairo_clip(cr);
       cairo_set_line_cap(cr, CAIRO_LINE_CAP_ROUND);
       cairo_set_line_join(cr, CAIRO_LINE_JOIN_ROUND);
       for (int pass = 0; pass < 2; ++pass) {
@@ -1564,11 +2185,16 @@ QuicklookResult write_quicklook(const MapData& map, const QuicklookOptions& o,
           const double len = a.speed / res.arrow_reference * ref_len;
           if (len < std::max(3.0, 0.15 * d)) continue;
           arrow_path(cr, a.x, a.y, a.ex, a.ey, len, std::min(0.4 * len, 6.0 * s));
+          if (pass == 0) {
+            const double n = std::hypot(a.ex, a.ey);
+            res.arrows.push_back({a.x, a.y, a.ex / n, a.ey / n, a.speed});
+          }
           ++drawn;
         }
         cairo_stroke(cr);
         res.arrow_count = drawn;
       }
+      cairo_restore(cr);
       // Legend: the reference arrow at the right end of the colour bar row.
       const double xr = m.x + m.width - 4 * s;
       set_colour(cr, 0.0);
@@ -1581,6 +2207,10 @@ QuicklookResult write_quicklook(const MapData& map, const QuicklookOptions& o,
           xr - ref_len - 8 * s, ymid, 1.0, 0.5);
     }
   }
+
+  // Labels of parallels inside the map, over everything (white halo).
+  ink.font(12.5 * s);
+  for (const auto& l : map_labels) ink.show_on_map(l.text, l.x, l.y, 0.5, 0.5, 3.0 * s);
 
   if (cairo_status(cr) != CAIRO_STATUS_SUCCESS)
     output_fail(png_path,

@@ -1,5 +1,7 @@
 #include <doctest/doctest.h>
+#include <fcntl.h>
 #include <netcdf.h>
+#include <sys/stat.h>
 #include <sys/wait.h>
 #include <unistd.h>
 
@@ -541,4 +543,414 @@ TEST_CASE("run_plan: a stop request abandons the file, leaves nothing, exits 128
     CHECK(e.path().filename().string().find("uv_") == std::string::npos);
   clear_stop();
   CHECK(stop_signal() == 0);
+}
+
+// ---- steps: [[quicklook]] and [[section]] ---------------------------------------------------
+
+TEST_CASE("job file: [[quicklook]] and [[section]] steps with every key") {
+  TempDir tmp;
+  write_text(tmp / "gates.toml",
+             "[[section]]\nname = \"east gate\"\nline = \"20 38, 20 42\"\n"
+             "[[section]]\nname = \"north gate\"\nline = \"16 43, 24 43\"\n");
+  write_text(tmp / "job.toml", minimal + R"(
+[currents]
+earth = "sphere"
+gravity = "wgs84"
+equator_band = 3
+
+[[quicklook]]
+output = "maps/%Y/speed_%Y%m%d.png"
+field = "speed"
+arrows = true
+region = [15, 25, 36.5, 44]
+range = "0,0.5"
+width = 1200
+time = 0
+
+[[quicklook]]
+output = "maps/%Y/ssh_%Y%m%d.png"
+source = "input"
+region = "350,10,-5,5"
+
+[[section]]
+output = "sections/zonal_%Y%m%d.csv"
+name = "zonal"
+line = "16 40, 24 40"
+spacing = 5
+depth = 3500
+sections = "gates.toml"
+
+[[section]]
+output = "sections/gates_%j.nc"
+sections = "gates.toml"
+earth = "wgs84"
+gravity = 9.8
+equator_band = 0
+)");
+  const JobFile j = load_job(tmp / "job.toml");
+  REQUIRE(j.quicklooks.size() == 2);
+  const QuicklookStep& q = j.quicklooks[0];
+  CHECK(q.output.text() == tmp / "maps/%Y/speed_%Y%m%d.png");
+  CHECK(q.line == 9);
+  CHECK_FALSE(q.of_input);
+  CHECK(q.request.field == "speed");
+  CHECK(q.request.arrows);
+  CHECK(q.options.arrows);
+  REQUIRE(q.options.region);
+  CHECK(q.options.region->lon0 == 15.0);
+  CHECK(q.options.region->lat1 == 44.0);
+  REQUIRE(q.options.range);
+  CHECK(q.options.range->high == 0.5);
+  CHECK(q.options.width_px == 1200);
+  CHECK(j.quicklooks[1].of_input);
+  CHECK(j.quicklooks[1].options.region->lon1 == 370.0);  // across the seam (parse_region)
+  CHECK(j.quicklooks[1].options.width_px == 1000);       // the quicklook default
+  CHECK(j.quicklooks[1].line == 18);
+  REQUIRE(j.sections.size() == 2);
+  const SectionStep& s = j.sections[0];
+  CHECK(s.output.text() == tmp / "sections/zonal_%Y%m%d.csv");
+  CHECK(s.line == 23);
+  REQUIRE(s.sections.size() == 3);  // the line first, then the file's
+  CHECK(s.sections[0].name == "zonal");
+  CHECK(s.sections[0].points.size() == 2);
+  CHECK(s.sections[1].name == "east gate");
+  CHECK(s.sections[2].name == "north gate");
+  CHECK(s.options.spacing_m == 5000.0);
+  CHECK(s.options.depth_m == 3500.0);
+  // Physics not given in [[section]] follow [currents].
+  CHECK(s.options.earth == EarthModel::sphere);
+  CHECK(s.options.gravity == GravityModel::wgs84);
+  CHECK(s.options.equator_band_deg == 3.0);
+  const SectionStep& g = j.sections[1];
+  CHECK(g.sections.size() == 2);
+  CHECK(g.options.earth == EarthModel::wgs84);
+  CHECK(g.options.gravity == GravityModel::constant);
+  CHECK(g.options.gravity_value == 9.8);
+  CHECK(g.options.equator_band_deg == 0.0);
+  CHECK(g.options.spacing_m == 0.0);  // about the grid spacing
+  // A single [quicklook] table is one step too; no steps by default.
+  CHECK(
+      parse_job(minimal + "[quicklook]\noutput = \"m_%F.png\"\n", "/j/a.toml").quicklooks.size() ==
+      1);
+  CHECK(parse_job(minimal, "/j/a.toml").quicklooks.empty());
+  CHECK(parse_job(minimal, "/j/a.toml").sections.empty());
+}
+
+TEST_CASE("job file: step problems name file and line") {
+  const std::string q = minimal + "\n[[quicklook]]\noutput = \"m/%F.png\"\n";  // table on line 4
+  CHECK(job_error(q + "feild = \"u\"\n") ==
+        "/srv/jobs/j.toml:6: unknown key 'feild' in [[quicklook]] (did you mean 'field'?); known: "
+        "output, source, field, time, region, range, arrows, width");
+  CHECK(job_error(q + "width = 100\n") ==
+        "/srv/jobs/j.toml:6: quicklook.width: 100 is outside 320..4096");
+  CHECK(job_error(q + "region = \"1,2,3\"\n") ==
+        "/srv/jobs/j.toml:6: quicklook.region: '1,2,3' is not LON0,LON1,LAT0,LAT1 in degrees");
+  CHECK(job_error(q + "region = [1, 2, 3]\n") ==
+        "/srv/jobs/j.toml:6: quicklook.region: expected a string or an array of 4 numbers, got an "
+        "array of 3");
+  CHECK(job_error(q + "region = [0, 10, 50, 40]\n") ==
+        "/srv/jobs/j.toml:6: quicklook.region: LAT0 must be south of LAT1");
+  CHECK(job_error(q + "range = [2, 1]\n") ==
+        "/srv/jobs/j.toml:6: quicklook.range: A must be less than B");
+  CHECK(job_error(q + "source = \"currents\"\n") ==
+        "/srv/jobs/j.toml:6: quicklook.source: 'currents' is not one of output, input");
+  CHECK(job_error(q + "source = \"input\"\narrows = true\n") ==
+        "/srv/jobs/j.toml:7: quicklook.arrows: needs u and v from the day's output; not with "
+        "source = \"input\"");
+  CHECK(job_error(q + "time = -1\n") ==
+        "/srv/jobs/j.toml:6: quicklook.time: -1 is outside 0..1073741824");
+  CHECK(job_error(minimal + "\n[[quicklook]]\nfield = \"u\"\n") ==
+        "/srv/jobs/j.toml:4: quicklook: missing key 'output' (a PNG path template, e.g. "
+        "\"maps/%Y/speed_%Y%m%d.png\")");
+  CHECK(job_error(minimal + "[[quicklook]]\noutput = \"map.png\"\n")
+            .rfind("/srv/jobs/j.toml:4: quicklook.output: template 'map.png' has no date field",
+                   0) == 0);
+  CHECK(
+      job_error(minimal + "[[quicklook]]\noutput = \"m_%Q.png\"\n")
+          .rfind("/srv/jobs/j.toml:4: quicklook.output: template 'm_%Q.png': unknown date field %Q",
+                 0) == 0);
+  CHECK(job_error(minimal + "quicklook = 3\n") ==
+        "/srv/jobs/j.toml:3: quicklook: expected [[quicklook]] tables, got an integer");
+
+  const std::string s = minimal + "\n[[section]]\noutput = \"s/%F.csv\"\n";
+  CHECK(job_error(s + "line = \"16 40, 24 40\"\nsapcing = 5\n") ==
+        "/srv/jobs/j.toml:7: unknown key 'sapcing' in [[section]] (did you mean 'spacing'?); "
+        "known: output, name, line, sections, spacing, depth, equator_band, earth, gravity");
+  CHECK(job_error(s) ==
+        "/srv/jobs/j.toml:4: section: needs line = \"LON LAT, LON LAT, ...\" or sections = "
+        "\"FILE.toml\"");
+  CHECK(job_error(s + "line = \"16 40\"\n").rfind("/srv/jobs/j.toml:6: section.line: ", 0) == 0);
+  CHECK(job_error(s + "line = \"16 40, 24 40\"\nspacing = 0\n") ==
+        "/srv/jobs/j.toml:7: section.spacing: must be a distance > 0 in km");
+  CHECK(job_error(s + "line = \"16 40, 24 40\"\ndepth = 20000\n") ==
+        "/srv/jobs/j.toml:7: section.depth: 20000 m is outside (0, 12000]");
+  CHECK(job_error(s + "line = \"16 40, 24 40\"\nearth = \"flat\"\n") ==
+        "/srv/jobs/j.toml:7: section.earth: 'flat' is not one of sphere, wgs84");
+  CHECK(job_error(s + "name = \"gate\"\n") ==
+        "/srv/jobs/j.toml:6: section.name: only with section.line");
+  CHECK(
+      job_error(s + "sections = \"no-such-gates.toml\"\n")
+          .rfind("/srv/jobs/j.toml:6: section.sections: /srv/jobs/no-such-gates.toml: cannot read "
+                 "section file",
+                 0) == 0);
+  CHECK(job_error(minimal + "[[section]]\noutput = \"s/%F.txt\"\nline = \"16 40, 24 40\"\n") ==
+        "/srv/jobs/j.toml:4: section.output: 's/%F.txt' must end in .csv, .nc or .nc4");
+  CHECK(job_error(minimal + "[[section]]\nline = \"16 40, 24 40\"\n") ==
+        "/srv/jobs/j.toml:3: section: missing key 'output' (a .csv or .nc path template, e.g. "
+        "\"sections/gates_%Y%m%d.csv\")");
+}
+
+namespace {
+/// Sets the modification time of PATH to SECONDS after the epoch.
+void set_mtime(const std::string& path, long seconds) {
+  const struct timespec t[2] = {{seconds, 0}, {seconds, 0}};
+  REQUIRE(::utimensat(AT_FDCWD, path.c_str(), t, 0) == 0);
+}
+
+/// The smallest whole PNG: signature, IHDR of a 1 x 1 grey image, IDAT, IEND
+/// (bytes from the PNG specification's chunk layout; CRCs computed by zlib).
+const std::string tiny_png = std::string(
+    "\x89\x50\x4e\x47\x0d\x0a\x1a\x0a\x00\x00\x00\x0d\x49\x48\x44\x52\x00\x00\x00\x01"
+    "\x00\x00\x00\x01\x08\x00\x00\x00\x00\x3a\x7e\x9b\x55\x00\x00\x00\x0a\x49\x44\x41\x54"
+    "\x78\x9c\x63\x60\x00\x00\x00\x02\x00\x01\x48\xaf\xa4\x71\x00\x00\x00\x00\x49\x45"
+    "\x4e\x44\xae\x42\x60\x82",
+    67);
+}  // namespace
+
+TEST_CASE("step outputs: complete only when whole and not older than the day's output") {
+  TempDir tmp;
+  make_marked(tmp / "uv.nc", "complete");
+  set_mtime(tmp / "uv.nc", 1000000000);  // 2001: every file written now is newer
+  CHECK(step_output_state(tmp / "m.png", tmp / "uv.nc") == OutputState::absent);
+  write_text(tmp / "m.png", tiny_png);
+  CHECK(step_output_state(tmp / "m.png", tmp / "uv.nc") == OutputState::complete);
+  write_text(tmp / "torn.png", tiny_png.substr(0, 40));  // cut inside IDAT
+  CHECK(step_output_state(tmp / "torn.png", tmp / "uv.nc") == OutputState::incomplete);
+  write_text(tmp / "other.png", "GIF89a not a PNG at all, but long enough");
+  CHECK(step_output_state(tmp / "other.png", tmp / "uv.nc") == OutputState::incomplete);
+  set_mtime(tmp / "m.png", 999999999);  // made from an older currents output: stale
+  CHECK(step_output_state(tmp / "m.png", tmp / "uv.nc") == OutputState::incomplete);
+  CHECK(step_output_state(tmp / "m.png", tmp / "absent.nc") == OutputState::complete);
+  write_text(tmp / "s.csv", "time,section,length_m\n2031-09-01T00:00:00Z,a,1\n");
+  CHECK(step_output_state(tmp / "s.csv", tmp / "uv.nc") == OutputState::complete);
+  write_text(tmp / "cut.csv", "time,section,length_m\n2031-09-01T00:00");
+  CHECK(step_output_state(tmp / "cut.csv", tmp / "uv.nc") == OutputState::incomplete);
+  make_marked(tmp / "s.nc", "complete");
+  CHECK(step_output_state(tmp / "s.nc", tmp / "uv.nc") == OutputState::complete);
+  make_marked(tmp / "s4.nc4", nullptr);
+  CHECK(step_output_state(tmp / "s4.nc4", tmp / "uv.nc") == OutputState::incomplete);
+  fs::create_directory(tmp / "dir.png");
+  CHECK(step_output_state(tmp / "dir.png", tmp / "uv.nc") == OutputState::incomplete);
+}
+
+TEST_CASE("plan: steps follow the day; duplicates and collisions are refused") {
+  TempDir tmp;
+  write_text(tmp / "job.toml",
+             std::string("input = \"in_%d.nc\"\noutput = \"out_%d.nc\"\n") +
+                 "[[quicklook]]\noutput = \"map_%d.png\"\n"
+                 "[[section]]\noutput = \"sec_%d.csv\"\nline = \"16 40, 24 40\"\n");
+  const JobFile j = load_job(tmp / "job.toml");
+  make_input(tmp / "in_01.nc");
+  make_input(tmp / "in_02.nc");
+  make_marked(tmp / "out_02.nc", "complete");
+  set_mtime(tmp / "out_02.nc", 2000000000);
+  write_text(tmp / "map_02.png", tiny_png);  // complete and newer than the output
+  set_mtime(tmp / "map_02.png", 2000000100);
+  write_text(tmp / "sec_02.csv", "time,section\n");
+  set_mtime(tmp / "sec_02.csv", 1999999000);  // older than the output: stale
+  const std::vector<Date> days = {D(2031, 9, 1), D(2031, 9, 2), D(2031, 9, 3)};
+  auto plan = make_plan(j, days, false);
+  REQUIRE(plan.size() == 3);
+  REQUIRE(plan[0].steps.size() == 2);
+  CHECK(plan[0].steps[0].kind == StepKind::quicklook);
+  CHECK(plan[0].steps[0].source == tmp / "out_01.nc");
+  CHECK(plan[0].steps[0].output == tmp / "map_01.png");
+  CHECK(plan[0].steps[0].action == PlanAction::run);
+  CHECK(plan[0].steps[1].kind == StepKind::section);
+  CHECK(plan[0].steps[1].source == tmp / "in_01.nc");
+  CHECK(plan[1].action == PlanAction::skip);
+  CHECK(plan[1].steps[0].action == PlanAction::skip);
+  CHECK(plan[1].steps[1].action == PlanAction::redo);
+  CHECK(plan[1].steps[1].was == OutputState::incomplete);
+  CHECK(plan[2].action == PlanAction::missing);
+  CHECK(plan[2].steps.empty());
+  plan = make_plan(j, days, true);  // --force: the day and all its steps again
+  CHECK(plan[1].action == PlanAction::redo);
+  CHECK(plan[1].steps[0].action == PlanAction::redo);
+  CHECK(plan[1].steps[0].was == OutputState::complete);
+
+  // One map for two dates, a map over the day's output, a section over a map.
+  write_text(tmp / "dup.toml", std::string("input = \"in_%d.nc\"\noutput = \"out_%d.nc\"\n") +
+                                   "[[quicklook]]\noutput = \"map_%m.png\"\n");
+  CHECK(error_of([&] { make_plan(load_job(tmp / "dup.toml"), days, false); }) ==
+        tmp / "dup.toml" + ":3: quicklook.output: template '" + tmp / "map_%m.png" + "' gives " +
+            tmp / "map_09.png" +
+            " for 2031-09-02, which is also the quicklook.output of [[quicklook]] 1 for "
+            "2031-09-01 (add a day field such as %d or %j)");
+  write_text(tmp / "self.toml", std::string("input = \"in_%d.nc\"\noutput = \"out_%d.nc\"\n") +
+                                    "[[quicklook]]\noutput = \"out_%d.nc\"\n");
+  CHECK(error_of([&] { make_plan(load_job(tmp / "self.toml"), days, false); }) ==
+        tmp / "self.toml" +
+            ":3: quicklook.output: for 2031-09-01 the file equals the day's "
+            "output: " +
+            tmp / "out_01.nc");
+  write_text(tmp / "cross.toml",
+             std::string("input = \"in_%d.nc\"\noutput = \"out_%d.nc\"\n") +
+                 "[[quicklook]]\noutput = \"x_%d.csv\"\n[[section]]\noutput = \"x_%d.csv\"\n"
+                 "line = \"16 40, 24 40\"\n");
+  CHECK(error_of([&] {
+          make_plan(load_job(tmp / "cross.toml"), days, false);
+        }).find("which is also the quicklook.output of [[quicklook]] 1 for 2031-09-01") !=
+        std::string::npos);
+  // Temporaries of steps are stale temporaries of the plan too.
+  const pid_t child = fork();
+  if (child == 0) _exit(0);
+  int st = 0;
+  waitpid(child, &st, 0);
+  write_text(tmp / (".map_01.png.tmp-" + std::to_string(child) + "-0123abcd"), "x");
+  CHECK(remove_stale_temporaries(make_plan(j, days, false)) ==
+        std::vector<std::string>{tmp / (".map_01.png.tmp-" + std::to_string(child) + "-0123abcd")});
+}
+
+namespace {
+struct StepCounter : RunObserver {
+  std::vector<std::string> seen;  // "date kind index status"
+  void step_finished(const StepResult& r) override {
+    seen.push_back(r.date.iso() + " " + step_name(r.step.kind) + " " +
+                   std::to_string(r.step.index + 1) + " " + status_name(r.status));
+  }
+};
+
+bool png_signature(const std::string& path) {
+  std::ifstream f(path, std::ios::binary);
+  char head[8] = {};
+  f.read(head, 8);
+  return std::string(head, 8) == std::string("\x89PNG\r\n\x1a\n", 8);  // PNG spec 5.2
+}
+}  // namespace
+
+TEST_CASE("run_plan: steps after the day's output; rerun skips; force redoes; failures count") {
+  clear_stop();
+  TempDir tmp;
+  write_text(tmp / "job.toml", R"(input = "in_%d.nc"
+output = "out/uv_%d.nc"
+[currents]
+fields = "u,v,speed"
+[[quicklook]]
+output = "maps/speed_%d.png"
+arrows = true
+width = 400
+[[quicklook]]
+output = "maps/ssh_%d.png"
+source = "input"
+width = 400
+[[section]]
+output = "sections/zonal_%d.csv"
+line = "16 40, 24 40"
+)");
+  const JobFile j = load_job(tmp / "job.toml");
+  make_input(tmp / "in_01.nc");
+  make_input(tmp / "in_02.nc");
+  const std::vector<Date> days = {D(2031, 9, 1), D(2031, 9, 2)};
+  RunSettings rs;
+  rs.log_json = tmp / "log.jsonl";
+  StepCounter c;
+  RunTotals t = run_plan(j, make_plan(j, days, false), rs, c);
+  CHECK(t.done == 2);
+  CHECK(t.steps_done == 6);
+  CHECK(t.exit_code() == 0);
+  CHECK(c.seen ==
+        std::vector<std::string>{"2031-09-01 quicklook 1 done", "2031-09-01 quicklook 2 done",
+                                 "2031-09-01 section 1 done", "2031-09-02 quicklook 1 done",
+                                 "2031-09-02 quicklook 2 done", "2031-09-02 section 1 done"});
+  for (const char* f : {"maps/speed_01.png", "maps/ssh_01.png", "sections/zonal_01.csv"})
+    CHECK(step_output_state(tmp / f, tmp / "out/uv_01.nc") == OutputState::complete);
+  for (const char* f : {"maps/speed_02.png", "maps/ssh_02.png", "sections/zonal_02.csv"})
+    CHECK(step_output_state(tmp / f, tmp / "out/uv_02.nc") == OutputState::complete);
+  CHECK(png_signature(tmp / "maps/speed_01.png"));
+  {
+    std::ifstream csv(tmp / "sections/zonal_01.csv");
+    std::string header;
+    std::getline(csv, header);
+    CHECK(header.rfind("time,section,length_m,transport_per_depth_m2s", 0) == 0);
+  }
+  // Rerun: everything is complete and skipped.
+  StepCounter c2;
+  t = run_plan(j, make_plan(j, days, false), rs, c2);
+  CHECK(t.skipped == 2);
+  CHECK(t.steps_skipped == 6);
+  CHECK(t.steps_done + t.steps_redone == 0);
+  // A torn map is made again (the day's output is kept).
+  write_text(tmp / "maps/ssh_01.png", "torn");
+  t = run_plan(j, make_plan(j, days, false), rs, c2);
+  CHECK(t.skipped == 2);
+  CHECK(t.steps_redone == 1);
+  CHECK(step_output_state(tmp / "maps/ssh_01.png", tmp / "out/uv_01.nc") == OutputState::complete);
+  // --force: the days and their steps again.
+  t = run_plan(j, make_plan(j, days, true), rs, c2);
+  CHECK(t.redone == 2);
+  CHECK(t.steps_redone == 6);
+  // JSON: one line per day and per step, each run.
+  std::ifstream log(tmp / "log.jsonl");
+  std::string line;
+  std::size_t lines = 0, step_lines = 0;
+  while (std::getline(log, line)) {
+    ++lines;
+    if (line.find("\"step\": ") != std::string::npos) ++step_lines;
+  }
+  CHECK(lines == 4 * 8);
+  CHECK(step_lines == 4 * 6);
+
+  // A step that fails on its source (a field the output lacks) is an input
+  // failure (exit 5); one whose folder is missing (make_folders = false) an
+  // output failure (exit 4, which wins). The day's output is still written.
+  write_text(tmp / "bad.toml", R"(input = "in_%d.nc"
+output = "bad/uv_%d.nc"
+make_folders = false
+[currents]
+fields = "u,v"
+[[quicklook]]
+output = "bad/vort_%d.png"
+field = "vorticity"
+[[section]]
+output = "nowhere/s_%d.csv"
+line = "16 40, 24 40"
+)");
+  fs::create_directory(tmp / "bad");
+  const JobFile b = load_job(tmp / "bad.toml");
+  StepCounter c3;
+  t = run_plan(b, make_plan(b, {D(2031, 9, 1)}, false), {}, c3);
+  CHECK(t.done == 1);
+  CHECK(t.steps_failed_input == 1);
+  CHECK(t.steps_failed_output == 1);
+  CHECK(t.exit_code() == 4);
+  CHECK(c3.seen ==
+        std::vector<std::string>{"2031-09-01 quicklook 1 failed", "2031-09-01 section 1 failed"});
+  CHECK_FALSE(fs::exists(tmp / "bad/vort_01.png"));
+  CHECK(output_state(tmp / "bad/uv_01.nc") == OutputState::complete);
+  for (const auto& e : fs::directory_iterator(tmp / "bad"))
+    CHECK(e.path().filename().string().find(".tmp-") == std::string::npos);
+  t.steps_failed_output = 0;
+  CHECK(t.exit_code() == 5);
+}
+
+TEST_CASE("JSON step lines") {
+  StepResult r;
+  r.date = D(2031, 9, 3);
+  r.step.kind = StepKind::section;
+  r.step.index = 1;
+  r.step.source = "/in/a.nc";
+  r.step.output = "/out/s.csv";
+  r.status = FileStatus::done;
+  r.seconds = 0.25;
+  CHECK(json_step_line(r, "job", "T") ==
+        "{\"time\": \"T\", \"job\": \"job\", \"date\": \"2031-09-03\", \"step\": \"section\", "
+        "\"step_index\": 2, \"input\": \"/in/a.nc\", \"output\": \"/out/s.csv\", \"status\": "
+        "\"done\", \"seconds\": 0.250, \"message\": null}\n");
+  r.status = FileStatus::skipped;
+  CHECK(json_step_line(r, "job", "T").find("\"status\": \"skipped\", \"seconds\": null") !=
+        std::string::npos);
+  r.status = FileStatus::failed;
+  r.message = "x";
+  CHECK(json_step_line(r, "job", "T").find("\"message\": \"x\"}") != std::string::npos);
 }

@@ -226,6 +226,12 @@ std::vector<double> field_of(const std::vector<double>& lat, const std::vector<d
 
 double north_positive(double lat, double) { return 1e-6 * lat; }  // s-1, zero on the equator
 
+MapRequest field_request(const std::string& field) {
+  MapRequest r;
+  r.field = field;
+  return r;
+}
+
 }  // namespace
 
 TEST_CASE("colour maps: published end and centre colours") {
@@ -546,12 +552,12 @@ TEST_CASE("unknown variable: colour map from the sign of its values") {
   // those and would stop drawing): replaced, the PNG is still written.
   write_file(in, lat, lon, 1,
              {{"thing", pos, {{"long_name", "bad \xff\xfe text \xc3"}}}, {"other", mixed, {}}});
-  CHECK(seatilt::read_map_data(in, MapRequest{"thing"}).scale == ColourScale::sequential);
-  CHECK(seatilt::read_map_data(in, MapRequest{"other"}).scale == ColourScale::diverging);
+  CHECK(seatilt::read_map_data(in, field_request("thing")).scale == ColourScale::sequential);
+  CHECK(seatilt::read_map_data(in, field_request("other")).scale == ColourScale::diverging);
   // Given range: the colours use it.
   QuicklookOptions o;
   o.range = seatilt::parse_range("0,100");
-  const MapData m = seatilt::read_map_data(in, MapRequest{"thing"});
+  const MapData m = seatilt::read_map_data(in, field_request("thing"));
   const QuicklookResult r = seatilt::write_quicklook(m, o, tmp.file("x.png"));
   CHECK(!r.range_from_percentiles);
   CHECK(r.range.high == 100.0);
@@ -572,4 +578,306 @@ TEST_CASE("unknown variable: colour map from the sign of its values") {
   // cell (5 N, 5 E) = 11 -> t = 0.11 -> viridis entry floor(0.11 * 256) = 28
   CHECK(text(colour_near(png, r, 5.3, 5.3)) ==
         text(seatilt::colour_at(ColourScale::sequential, 0.11)));
+}
+
+// ---- projected and curvilinear grids -------------------------------------------------------
+
+namespace {
+
+// North polar stereographic grid of NSIDC's EPSG:3413 (central meridian
+// 45 W, true scale at 70 N, WGS84): CF 1.12 Appendix F attributes.
+constexpr double ps_lon0 = -45.0, ps_lat_ts = 70.0;
+constexpr double wgs84_a = 6378137.0, wgs84_rf = 298.257223563;  // NIMA TR8350.2
+
+/// Snyder (1987) eqs. 21-33, 21-34, 14-15, 15-9: distance from the pole
+/// (m) of latitude LAT on the north polar stereographic projection with true
+/// scale at ps_lat_ts on the WGS84 ellipsoid.
+double polar_rho(double lat_deg) {
+  const double f = 1.0 / wgs84_rf, e = std::sqrt(f * (2.0 - f));
+  const double deg = 3.14159265358979323846 / 180.0;
+  const auto t = [&](double phi) {
+    return std::tan(0.25 * 3.14159265358979323846 - 0.5 * phi) /
+           std::pow((1.0 - e * std::sin(phi)) / (1.0 + e * std::sin(phi)), 0.5 * e);
+  };
+  const double pc = ps_lat_ts * deg;
+  const double mc = std::cos(pc) / std::sqrt(1.0 - e * e * std::sin(pc) * std::sin(pc));
+  return wgs84_a * mc * t(lat_deg * deg) / t(pc);
+}
+
+/// Writes VARS (each ny x nx, one time step) on the polar stereographic grid
+/// with 1-D X, Y (metres) and a grid mapping variable "crs".
+void write_polar(const std::string& path, const std::vector<double>& x,
+                 const std::vector<double>& y, const std::vector<VarSpec>& vars) {
+  int ncid = -1;
+  check(nc_create(path.c_str(), NC_NETCDF4 | NC_CLOBBER, &ncid));
+  int dt = -1, dy = -1, dx = -1, vt = -1, vy = -1, vx = -1, crs = -1;
+  check(nc_def_dim(ncid, "time", NC_UNLIMITED, &dt));
+  check(nc_def_dim(ncid, "y", y.size(), &dy));
+  check(nc_def_dim(ncid, "x", x.size(), &dx));
+  check(nc_def_var(ncid, "time", NC_DOUBLE, 1, &dt, &vt));
+  put_text(ncid, vt, "units", "days since 2031-01-01");
+  check(nc_def_var(ncid, "y", NC_DOUBLE, 1, &dy, &vy));
+  put_text(ncid, vy, "standard_name", "projection_y_coordinate");
+  put_text(ncid, vy, "units", "m");
+  check(nc_def_var(ncid, "x", NC_DOUBLE, 1, &dx, &vx));
+  put_text(ncid, vx, "standard_name", "projection_x_coordinate");
+  put_text(ncid, vx, "units", "m");
+  check(nc_def_var(ncid, "crs", NC_INT, 0, nullptr, &crs));
+  put_text(ncid, crs, "grid_mapping_name", "polar_stereographic");
+  const auto number = [&](const char* name, double value) {
+    check(nc_put_att_double(ncid, crs, name, NC_DOUBLE, 1, &value));
+  };
+  number("latitude_of_projection_origin", 90.0);
+  number("straight_vertical_longitude_from_pole", ps_lon0);
+  number("standard_parallel", ps_lat_ts);
+  number("false_easting", 0.0);
+  number("false_northing", 0.0);
+  number("semi_major_axis", wgs84_a);
+  number("inverse_flattening", wgs84_rf);
+  const int dims[3] = {dt, dy, dx};
+  std::vector<int> ids;
+  for (const VarSpec& v : vars) {
+    int id = -1;
+    check(nc_def_var(ncid, v.name.c_str(), NC_FLOAT, 3, dims, &id));
+    const float fill = 9.96921e36f;
+    check(nc_put_att_float(ncid, id, "_FillValue", NC_FLOAT, 1, &fill));
+    put_text(ncid, id, "grid_mapping", "crs");
+    for (const auto& [k, val] : v.attrs) put_text(ncid, id, k.c_str(), val);
+    ids.push_back(id);
+  }
+  check(nc_enddef(ncid));
+  const double zero = 0.0;
+  const std::size_t start0 = 0, one = 1;
+  check(nc_put_vara_double(ncid, vt, &start0, &one, &zero));
+  check(nc_put_var_double(ncid, vy, y.data()));
+  check(nc_put_var_double(ncid, vx, x.data()));
+  for (std::size_t k = 0; k < vars.size(); ++k) {
+    std::vector<float> raw(vars[k].values.size());
+    for (std::size_t q = 0; q < raw.size(); ++q)
+      raw[q] = std::isnan(vars[k].values[q]) ? 9.96921e36f : static_cast<float>(vars[k].values[q]);
+    const std::size_t start[3] = {0, 0, 0}, count[3] = {1, y.size(), x.size()};
+    check(nc_put_vara_float(ncid, ids[k], start, count, raw.data()));
+  }
+  check(nc_close(ncid));
+}
+
+/// The most common colour of the 3 x 3 pixels around pixel (PX, PY).
+Rgb8 colour_at_pixel(const Png& png, int px, int py) {
+  std::vector<Rgb8> seen;
+  std::vector<int> count;
+  for (int dy = -1; dy <= 1; ++dy)
+    for (int dx = -1; dx <= 1; ++dx) {
+      const Rgb8 c = png.at(px + dx, py + dy);
+      const auto it = std::find(seen.begin(), seen.end(), c);
+      if (it == seen.end()) {
+        seen.push_back(c);
+        count.push_back(1);
+      } else {
+        ++count[static_cast<std::size_t>(it - seen.begin())];
+      }
+    }
+  return seen[static_cast<std::size_t>(std::max_element(count.begin(), count.end()) -
+                                       count.begin())];
+}
+
+}  // namespace
+
+TEST_CASE("projected grid: drawn on its own grid, y up, land grey, arrows rotated to the grid") {
+  TempDir tmp;
+  // 41 x 41 nodes, 100 km apart, centred on the pole; y stored descending
+  // (north of the pole first, as many files have it).
+  std::vector<double> x, y;
+  for (int k = -20; k <= 20; ++k) x.push_back(1e5 * k);
+  for (int k = 20; k >= -20; --k) y.push_back(1e5 * k);
+  std::vector<double> vort, u, v, speed;
+  for (double yy : y)
+    for (double xx : x) {
+      const bool land = xx > 1.2e6 && yy > 1.2e6;        // a block of fill in one corner
+      vort.push_back(land ? missing : 1e-6 * yy / 2e6);  // positive where y > 0
+      u.push_back(land ? missing : 0.3);                 // an eastward jet
+      v.push_back(land ? missing : 0.0);
+      speed.push_back(land ? missing : 0.3);
+    }
+  const std::string in = tmp.file("arctic_uv.nc");
+  write_polar(in, x, y,
+              {{"vorticity", vort, {{"units", "s-1"}}},
+               {"u", u, {{"units", "m s-1"}}},
+               {"v", v, {{"units", "m s-1"}}},
+               {"speed", speed, {{"units", "m s-1"}}}});
+  MapRequest req;
+  req.field = "vorticity";
+  req.arrows = true;
+  const MapData map = seatilt::read_map_data(in, req);
+  CHECK(map.grid_kind == seatilt::GridKind::projected);
+  REQUIRE(map.plane);
+  CHECK(map.grid_name == "polar_stereographic");
+  CHECK(map.lat_deg.empty());
+  CHECK(map.values.ny == 41);
+  CHECK(map.scale == ColourScale::diverging);
+
+  QuicklookOptions o;
+  o.width_px = 600;
+  o.arrows = true;
+  const std::string out = tmp.file("arctic.png");
+  const QuicklookResult r = seatilt::write_quicklook(map, o, out);
+  const Png png = decode(out);
+  CHECK(png.width == 600);
+  CHECK(png.height == r.height_px);
+  CHECK(r.grid_kind == seatilt::GridKind::projected);
+  // The window is the cells' extent: edges half a spacing beyond the nodes.
+  CHECK(r.window.c0 == doctest::Approx(-2.05e6));
+  CHECK(r.window.c1 == doctest::Approx(2.05e6));
+  CHECK(r.window.r0 == doctest::Approx(-2.05e6));
+  CHECK(r.window.r1 == doctest::Approx(2.05e6));
+  CHECK(r.map.width == r.map.height);  // a square grid keeps its aspect
+  CHECK(r.graticule_labels >= 4);
+  // y up: positive (red) above the pole's row, negative (blue) below.
+  for (double xx : {-1.5e6, -0.3e6, 0.8e6}) {
+    int px = 0, py = 0;
+    seatilt::grid_to_pixel(r, xx, 0.75e6, px, py);
+    CHECK(py < r.map.y + r.map.height / 2);
+    const Rgb8 n = colour_at_pixel(png, px, py);
+    seatilt::grid_to_pixel(r, xx, -0.75e6, px, py);
+    CHECK(py > r.map.y + r.map.height / 2);
+    const Rgb8 s = colour_at_pixel(png, px, py);
+    CHECK(n.r > n.b + 40);
+    CHECK(s.b > s.r + 40);
+  }
+  // The land corner (x, y > 1200 km: top right) is grey (off the 90 E
+  // meridian, which runs along its diagonal).
+  int px = 0, py = 0;
+  seatilt::grid_to_pixel(r, 1.55e6, 1.85e6, px, py);
+  CHECK(px > r.map.x + r.map.width / 2);
+  CHECK(text(colour_at_pixel(png, px, py)) == text(seatilt::no_data_colour()));
+  double c = 0, rr = 0;
+  seatilt::pixel_to_grid(r, px, py, c, rr);
+  CHECK(c == doctest::Approx(1.55e6).epsilon(0.01));
+  double lon = 0, lat = 0;
+  seatilt::pixel_to_lonlat(r, px, py, lon, lat);  // not a lat/lon map
+  CHECK(std::isnan(lon));
+
+  // Arrows of a purely eastward flow point along the parallels: on north
+  // polar stereographic x = rho sin(lon - lon0), y = -rho cos(lon - lon0)
+  // (Snyder 1987 eqs. 21-30, 21-31), so east is (cos(lon - lon0),
+  // sin(lon - lon0)) in x, y, i.e. (cos, -sin) on the page (y down).
+  REQUIRE(r.arrows.size() > 50);
+  CHECK(r.arrow_count == r.arrows.size());
+  std::size_t checked = 0;
+  for (const seatilt::DrawnArrow& a : r.arrows) {
+    seatilt::pixel_to_grid(r, static_cast<int>(a.x), static_cast<int>(a.y), c, rr);
+    const double nx_ = 1e5 * std::round(c / 1e5), ny_ = 1e5 * std::round(rr / 1e5);  // its node
+    if (nx_ == 0.0 && ny_ == 0.0) continue;
+    const double dl = std::atan2(nx_, -ny_);  // lon - lon0 (radians)
+    CHECK(a.dx * std::cos(dl) - a.dy * std::sin(dl) > 0.9999);
+    CHECK(a.speed == doctest::Approx(0.3));
+    ++checked;
+  }
+  CHECK(checked == r.arrows.size());
+
+  // --region on a projected grid: the rectangle of cells whose centres lie
+  // in the box; north of 80 N = within polar_rho(80) of the pole.
+  o.region = seatilt::parse_region("0,360,80,90");
+  o.arrows = false;
+  const QuicklookResult rg = seatilt::write_quicklook(map, o, tmp.file("north.png"));
+  const double rho80 = polar_rho(80.0);  // about 1.1e6 m
+  CHECK(rho80 > 1.0e6);
+  CHECK(rho80 < 1.2e6);
+  double lo = 1e300, hi = -1e300;
+  for (double xx : x)
+    for (double yy : y)
+      if (std::hypot(xx, yy) <= rho80) {
+        lo = std::min(lo, xx);
+        hi = std::max(hi, xx);
+      }
+  CHECK(rg.window.c0 == doctest::Approx(lo - 5e4));
+  CHECK(rg.window.c1 == doctest::Approx(hi + 5e4));
+  CHECK(rg.window.r0 == doctest::Approx(lo - 5e4));  // symmetric about the pole
+  CHECK(rg.window.r1 == doctest::Approx(hi + 5e4));
+  CHECK(rg.region.lat1 > 89.9);  // the nodes drawn: up to the pole,
+  CHECK(rg.region.lat0 < 80.0);  // down to the rectangle's corners
+  CHECK(rg.region.lat0 > 75.0);
+  o.region = seatilt::parse_region("0,10,0,10");  // far south of the grid
+  CHECK_THROWS_AS(seatilt::write_quicklook(map, o, tmp.file("none.png")), UsageError);
+  CHECK_FALSE(fs::exists(tmp.file("none.png")));
+
+  // Heights on the grid go through the Reader (metres, as `currents` reads them).
+  const std::string h = tmp.file("arctic_ssh.nc");
+  std::vector<double> cm;
+  for (double yy : y)
+    for (double xx : x) cm.push_back(10.0 + 0.0 * xx + 1e-5 * yy);
+  write_polar(
+      h, x, y,
+      {{"adt", cm, {{"standard_name", "sea_surface_height_above_geoid"}, {"units", "cm"}}}});
+  const MapData hm = seatilt::read_map_data(h, MapRequest{});
+  CHECK(hm.grid_kind == seatilt::GridKind::projected);
+  CHECK(hm.units == "m");
+  CHECK(hm.values.at(0, 20) == doctest::Approx(0.30).epsilon(1e-5));  // 10 + 20 cm at y = 2000 km
+}
+
+TEST_CASE("curvilinear grid: rows running south are drawn north up") {
+  TempDir tmp;
+  const std::size_t ny = 30, nx = 40;
+  // 2-D latitude/longitude only (no coordinate variables), rows from north
+  // to south, columns to the east with a shear.
+  int ncid = -1;
+  const std::string in = tmp.file("shelf.nc");
+  check(nc_create(in.c_str(), NC_NETCDF4 | NC_CLOBBER, &ncid));
+  int dy = -1, dx = -1, vla = -1, vlo = -1, vf = -1, vu = -1, vv = -1;
+  check(nc_def_dim(ncid, "j", ny, &dy));
+  check(nc_def_dim(ncid, "i", nx, &dx));
+  const int dims[2] = {dy, dx};
+  check(nc_def_var(ncid, "nav_lat", NC_DOUBLE, 2, dims, &vla));
+  put_text(ncid, vla, "units", "degrees_north");
+  check(nc_def_var(ncid, "nav_lon", NC_DOUBLE, 2, dims, &vlo));
+  put_text(ncid, vlo, "units", "degrees_east");
+  for (const auto& [name, id] :
+       {std::pair<const char*, int*>{"anomaly", &vf}, {"u", &vu}, {"v", &vv}}) {
+    check(nc_def_var(ncid, name, NC_DOUBLE, 2, dims, id));
+    put_text(ncid, *id, "coordinates", "nav_lat nav_lon");
+    put_text(ncid, *id, "units", name[0] == 'a' ? "m" : "m s-1");
+  }
+  check(nc_enddef(ncid));
+  std::vector<double> la(ny * nx), lo(ny * nx), f(ny * nx), u(ny * nx, 0.0), v(ny * nx, 0.25);
+  for (std::size_t j = 0; j < ny; ++j)
+    for (std::size_t i = 0; i < nx; ++i) {
+      la[j * nx + i] = 60.0 - 0.4 * static_cast<double>(j);
+      lo[j * nx + i] = -20.0 + 0.5 * static_cast<double>(i) + 0.05 * static_cast<double>(j);
+      f[j * nx + i] = la[j * nx + i] - 54.2;  // positive in the north
+    }
+  check(nc_put_var_double(ncid, vla, la.data()));
+  check(nc_put_var_double(ncid, vlo, lo.data()));
+  check(nc_put_var_double(ncid, vf, f.data()));
+  check(nc_put_var_double(ncid, vu, u.data()));
+  check(nc_put_var_double(ncid, vv, v.data()));
+  check(nc_close(ncid));
+
+  MapRequest req;
+  req.field = "anomaly";
+  req.arrows = true;
+  const MapData map = seatilt::read_map_data(in, req);
+  CHECK(map.grid_kind == seatilt::GridKind::curvilinear);
+  CHECK(map.grid_name == "curvilinear");
+  CHECK(map.scale == ColourScale::diverging);  // by the sign of its values
+  QuicklookOptions o;
+  o.width_px = 500;
+  o.arrows = true;
+  const QuicklookResult r = seatilt::write_quicklook(map, o, tmp.file("shelf.png"));
+  const Png png = decode(tmp.file("shelf.png"));
+  CHECK(png.width == 500);
+  // Rows run south: the row coordinate is the negated index, row 0 on top.
+  CHECK(r.window.r0 == doctest::Approx(-(ny - 0.5)));
+  CHECK(r.window.r1 == doctest::Approx(0.5));
+  CHECK(r.window.c0 == doctest::Approx(-0.5));
+  int px = 0, py = 0;
+  seatilt::grid_to_pixel(r, 20.0, -3.0, px, py);  // row 3: 58.8 N
+  CHECK(py < r.map.y + r.map.height / 4);
+  const Rgb8 north = colour_at_pixel(png, px, py);
+  CHECK(north.r > north.b + 40);
+  seatilt::grid_to_pixel(r, 20.0, -26.0, px, py);  // row 26: 49.6 N
+  const Rgb8 south = colour_at_pixel(png, px, py);
+  CHECK(south.b > south.r + 40);
+  // A northward flow points up the page.
+  REQUIRE(!r.arrows.empty());
+  for (const seatilt::DrawnArrow& a : r.arrows) CHECK(a.dy < -0.95);
+  CHECK(r.graticule_labels >= 2);
 }

@@ -11,8 +11,14 @@
 // seatilt_status = "complete", which run_currents writes last); removing
 // temporary outputs left by dead processes; the exclusive flock(2) lock of a
 // job; running the plan through run_currents with a cooperative stop between
-// files and between row bands; one JSON line per file. Does not print, exit
-// or install signal handlers: src/cli/run.cpp does, through RunObserver and
+// files and between row bands; one JSON line per file. After a day's
+// currents output is complete, the job's optional steps run in the order
+// quicklook, section (each in file order): [[quicklook]] tables draw a PNG
+// map (quicklook.hpp) of the output (or of the input), [[section]] tables
+// compute transports across sections (section.hpp) of the day's input.
+// Steps publish atomically, are skipped when complete (step_output_state),
+// redone with --force, and log one JSON line each. Does not print, exit or
+// install signal handlers: src/cli/run.cpp does, through RunObserver and
 // request_stop().
 //
 // Dates are whole days of the proleptic Gregorian calendar in UTC. A job
@@ -49,7 +55,9 @@
 
 #include "seatilt/error.hpp"
 #include "seatilt/kernel.hpp"
+#include "seatilt/quicklook.hpp"
 #include "seatilt/reader.hpp"
+#include "seatilt/section.hpp"
 #include "seatilt/tiling.hpp"
 
 namespace seatilt {
@@ -112,6 +120,25 @@ enum class MissingInput {
   skip,  ///< report it and go on (e.g. a product not issued at weekends)
 };
 
+/// A [[quicklook]] table: a PNG map made after the day's currents output.
+struct QuicklookStep {
+  PathTemplate output;       ///< `output`: PNG path template (relative -> folder), with date fields
+  int line = 0;              ///< line of the table header (messages)
+  bool of_input = false;     ///< `source = "input"`: draw the day's input instead of its output
+  MapRequest request;        ///< `field`, `time`, `arrows` (as_height/units set per day)
+  QuicklookOptions options;  ///< `region`, `range`, `arrows`, `width` (force set per day)
+};
+
+/// A [[section]] table: transport across sections of the day's input.
+struct SectionStep {
+  PathTemplate output;  ///< `output`: .csv or .nc/.nc4 path template, with date fields
+  int line = 0;         ///< line of the table header (messages)
+  std::vector<SectionLine> sections;  ///< `line` (+ `name`) and/or the `sections` file's
+  /// `spacing` (km), `depth` (m); `equator_band`, `earth`, `gravity` default
+  /// to the job's [currents] values.
+  SectionOptions options;
+};
+
 /// A job file, checked and with every path absolute.
 struct JobFile {
   std::string path;    ///< the job file as given on the command line
@@ -140,6 +167,10 @@ struct JobFile {
   int threads = 0;                  ///< 0 = all cores
   std::size_t rows = 0;             ///< 0 = from memory_mb
   std::size_t memory_mb = 256;      ///< >= 16
+
+  // optional steps after the day's currents output ([[quicklook]], [[section]])
+  std::vector<QuicklookStep> quicklooks;
+  std::vector<SectionStep> sections;
 };
 
 /// Reads and checks the job file PATH. Throws UsageError
@@ -197,17 +228,49 @@ enum class PlanAction {
 /// Returns "run", "redo", "skip", "missing", "missing-ok".
 const char* action_name(PlanAction action);
 
+/// Kind of a step after the day's currents.
+enum class StepKind { quicklook, section };
+
+/// Returns "quicklook" or "section".
+const char* step_name(StepKind kind);
+
+/// State of a step's output PATH for a day whose currents output is
+/// REFERENCE (never throws). complete: a regular file, whole for its kind
+/// (netCDF, i.e. .nc/.nc4: global seatilt_status = "complete"; CSV: the
+/// section header line and a final newline; anything else, e.g. PNG: the
+/// PNG signature and an IEND chunk at the end), and modified no earlier
+/// than REFERENCE (a step made from an older currents output is stale).
+/// absent: nothing there. incomplete: anything else (stale, torn, foreign,
+/// a folder).
+OutputState step_output_state(const std::string& path, const std::string& reference);
+
+/// What a run will do for one step of a date.
+struct StepPlan {
+  StepKind kind = StepKind::quicklook;
+  std::size_t index = 0;                  ///< in JobFile::quicklooks or JobFile::sections
+  std::string source;                     ///< the file it reads: the day's output, or input
+  std::string output;                     ///< the file it writes
+  PlanAction action = PlanAction::run;    ///< run, redo or skip
+  OutputState was = OutputState::absent;  ///< output state when planned
+};
+
 struct PlanItem {
   Date date;
   std::string input, output;
   PlanAction action = PlanAction::run;
   OutputState was = OutputState::absent;  ///< output state when planned
+  /// The steps (quicklooks, then sections, in file order); empty for days
+  /// without input. When the currents are computed (run/redo) every step is
+  /// run (output absent) or redone; otherwise each step is skipped when
+  /// step_output_state is complete and made otherwise.
+  std::vector<StepPlan> steps;
 };
 
 /// Expands the templates for DATES and looks at the files. Throws UsageError
 /// "JOB:LINE: output: template gives one file for D1 and D2: PATH" when two
-/// dates share an output, and "... output equals input" when a date's output
-/// path is its input path.
+/// dates (or two steps, "JOB:LINE: quicklook.output: ...") share a file, and
+/// "... output equals input" when a date's output path is its input path
+/// (or a step's output is the day's input or currents output).
 std::vector<PlanItem> make_plan(const JobFile& job, const std::vector<Date>& dates, bool force);
 
 /// Removes temporary outputs ".<name>.tmp-<pid>-<8 hex>" (writer.hpp) whose
@@ -273,6 +336,18 @@ enum class FileStatus {
 /// Returns "done", "redone", "skipped", "missing", "failed", "interrupted".
 const char* status_name(FileStatus status);
 
+/// The outcome of one step of a date.
+struct StepResult {
+  Date date;
+  StepPlan step;
+  FileStatus status = FileStatus::done;  ///< done, redone, skipped, failed
+  /// failed: input (3: the source is unusable, or a problem such as a field
+  /// missing from it that shows only when it is read) or output (4)
+  ExitCode code = ExitCode::ok;
+  std::string message;   ///< failed: one line naming file and problem
+  double seconds = 0.0;  ///< wall time of the step
+};
+
 /// The outcome of one date.
 struct FileResult {
   PlanItem item;
@@ -292,9 +367,11 @@ class RunObserver {
                             std::size_t /*total*/) {}
   /// After each row band written by run_currents.
   virtual void band_done() {}
-  /// After date INDEX is finished.
+  /// After date INDEX is finished (before its steps).
   virtual void file_finished(const FileResult& /*result*/, std::size_t /*index*/,
                              std::size_t /*total*/) {}
+  /// After each step of a date.
+  virtual void step_finished(const StepResult& /*result*/) {}
 };
 
 /// Settings of one run besides the job file.
@@ -309,11 +386,15 @@ struct RunTotals {
   std::size_t done = 0, redone = 0, skipped = 0, missing_ok = 0;
   std::size_t failed_input = 0;   ///< missing or unusable inputs, other per-file errors
   std::size_t failed_output = 0;  ///< outputs that could not be written
-  int stop_signal = 0;            ///< signal that stopped the run, or 0
+  /// Steps: made (absent before), remade, skipped as complete, failed on their
+  /// source (or a problem found when reading it), failed on the output.
+  std::size_t steps_done = 0, steps_redone = 0, steps_skipped = 0;
+  std::size_t steps_failed_input = 0, steps_failed_output = 0;
+  int stop_signal = 0;  ///< signal that stopped the run, or 0
   double seconds = 0.0;
 
-  /// 128 + signal when stopped; 4 if an output could not be written; 5 if
-  /// an input failed; 0 otherwise.
+  /// 128 + signal when stopped; 4 if an output (of a day or a step) could
+  /// not be written; 5 if an input (of a day or a step) failed; 0 otherwise.
   [[nodiscard]] int exit_code() const;
 };
 
@@ -324,13 +405,24 @@ struct RunTotals {
 std::string json_log_line(const FileResult& result, const std::string& job_name,
                           const std::string& time_iso);
 
+/// Formats one JSON log line (with '\n') of step RESULT: {"time", "job",
+/// "date", "step" ("quicklook"/"section"), "step_index" (1-based within its
+/// kind), "input" (the file read), "output", "status", "seconds" (null when
+/// skipped), "message" (null unless failed)}.
+std::string json_step_line(const StepResult& result, const std::string& job_name,
+                           const std::string& time_iso);
+
 /// Runs PLAN in order: skips what make_plan found complete, computes the
 /// rest with run_currents (creating output folders when the job says so;
-/// replacing an incomplete output atomically), and stops before the next
-/// file or row band once request_stop was called (the current temporary
-/// file is removed). Every per-file error is caught and counted, none is
-/// thrown. Appends a JSON line per date to SETTINGS.log_json. Throws only
-/// OutputError when the log cannot be opened (before any file is touched).
+/// replacing an incomplete output atomically), then, once the day's output
+/// is complete, its steps (complete ones skipped; folders created like the
+/// output's; each written to a temporary file and renamed), and stops
+/// before the next file, row band or step once request_stop was called (the
+/// current temporary file is removed; a step already running finishes).
+/// Every per-file and per-step error is caught and counted, none is thrown.
+/// Appends a JSON line per date and per step to SETTINGS.log_json. Throws
+/// only OutputError when the log cannot be opened (before any file is
+/// touched).
 RunTotals run_plan(const JobFile& job, const std::vector<PlanItem>& plan,
                    const RunSettings& settings, RunObserver& observer);
 

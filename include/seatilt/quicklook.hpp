@@ -18,7 +18,8 @@
 //    the file. Latitude/longitude are the CF coordinate variables of the last
 //    two dimensions [1] 4.1, 4.2; the dimension before them, when present, is
 //    time (CF time decoded by decode_cf_time, reader.hpp); any other leading
-//    dimension must have length 1.
+//    dimension must have length 1. Variables on projected or curvilinear
+//    grids: see "Projected and curvilinear grids" below.
 //
 // Colour maps
 //  - sequential (magnitudes: speed, strain, absolute height, ...): viridis
@@ -43,6 +44,25 @@
 // -180..180, ascending or crossing the seam, and descending latitudes are
 // handled; a region may cross the seam of a global grid.
 //
+// Projected and curvilinear grids (docs/projected.md; found as `currents`
+// finds them, ReaderOptions::horizontal_grids) are drawn on their own grid:
+// x (or the column index) to the right, y (or the row index) up (2-D
+// latitude/longitude: an index axis is flipped when it runs west or south at
+// the centre node), one pixel showing the cell whose edges (halfway between
+// the coordinates) contain it; the page keeps the ground aspect (projected: y extent / x extent in
+// metres; curvilinear: rows x median row spacing / columns x median column
+// spacing, on the ground), clamped to 0.2..1.5 like lat/lon maps. The
+// graticule is drawn by contouring latitude and longitude sampled on a
+// lattice of about 4 px: PROJ's inverse projection [6] for projected grids,
+// for 2-D latitude/longitude bilinear interpolation of the nodes' unit
+// vectors (no seam or pole singularity; extrapolated half a cell beyond the
+// outer nodes). Lines are labelled where they cross the frame, without
+// overlapping labels. Arrows: u, v are true east/north components; their
+// direction on the page is (dc/dt, dr/dt) = (e_c u + n_c v, e_r u + n_r v)
+// with the node's DirectionalMetric (grid.hpp), scaled by pixels per grid
+// unit on each axis, which covers the convergence of the meridians and any
+// non-conformal distortion.
+//
 // References
 //  [1] CF Conventions 1.12.
 //  [2] N. J. Smith, S. van der Walt, E. Firing (2015), viridis colour map,
@@ -57,6 +77,7 @@
 //      doi:10.1080/00031305.1996.10473566 (definition 7).
 //  [5] J. P. Snyder (1987), Map Projections — A Working Manual, USGS
 //      Professional Paper 1395, chapter 12 (equidistant cylindrical).
+//  [6] PROJ 9.1 C API, proj_trans (inverse projection).
 //
 // Text uses Cairo's toy font API ("sans-serif"). Without any installed font
 // Cairo falls back to its built-in stroke font; labels are then written in
@@ -67,11 +88,13 @@
 
 #include <cstddef>
 #include <cstdint>
+#include <memory>
 #include <optional>
 #include <string>
 #include <vector>
 
 #include "seatilt/grid.hpp"
+#include "seatilt/reader.hpp"
 
 namespace seatilt {
 
@@ -121,6 +144,13 @@ struct MapRequest {
   std::string field;     ///< variable name; "" = `speed` when the file has it, else the height
   std::size_t time = 0;  ///< time index (0-based); 0 for a file without time
   bool arrows = false;   ///< also read u and v (m s-1) for current arrows
+  /// Read FIELD as the height through seatilt::Reader even without a CF
+  /// sea-surface-height standard_name (as `currents --variable` does); with
+  /// an empty FIELD the height is detected (never `speed`). For a `run` job
+  /// drawing its own input.
+  bool as_height = false;
+  /// Heights: override of the units (as `currents --units`); "" = from the file.
+  std::string units;
 };
 
 /// One field of one time step, ready to draw.
@@ -136,25 +166,37 @@ struct MapData {
   std::string arrow_units;  ///< units of u ("" without arrows)
   std::size_t time_index = 0, time_steps = 1;
   std::string date;  ///< ISO 8601 date of the step; "" without time or when undecodable
+  /// How cells are placed. lat_lon: lat_deg/lon_deg hold the 1-D coordinates.
+  /// projected/curvilinear: lat_deg/lon_deg are empty and `plane` holds the
+  /// node positions, grid coordinates (x/y in metres, or indices) and metric.
+  GridKind grid_kind = GridKind::lat_lon;
+  std::shared_ptr<const CurvilinearGrid> plane;  ///< null for lat_lon
+  std::string grid_name;  ///< the grid mapping's name ("polar_stereographic") or "curvilinear"
 };
 
 /// Reads the field of REQUEST from PATH.
 /// Field choice: REQUEST.field, else `speed` when the file has that
-/// variable, else the height variable detected by seatilt::Reader. A field
-/// whose standard_name starts with "sea_surface_height" (or the detected
-/// height) is read through the Reader (metres); others with netCDF-C, in the
-/// file's units. Colour map: diverging for a sea level anomaly and for
-/// u, v, vorticity, strain_normal, strain_shear, okubo_weiss (also when the
+/// variable, else the height variable detected by seatilt::Reader. Grids:
+/// 1-D latitude/longitude, or (like `currents`) projected x/y with a CF
+/// grid_mapping and 2-D latitude/longitude named by `coordinates`; the grid
+/// of a non-height variable is found by the Reader's rules; node positions
+/// and metric come from make_curvilinear_grid (tiling.hpp; WGS84 for 2-D
+/// latitude/longitude). A field whose standard_name starts with
+/// "sea_surface_height" (or the detected height) is read through the Reader
+/// (metres); others with netCDF-C, in the file's units (REQUEST.as_height:
+/// through the Reader with REQUEST.units). Colour map: diverging for a sea
+/// level anomaly and for u, v, vorticity, strain_normal, strain_shear, okubo_weiss (also when the
 /// standard_name names an eastward/northward velocity or a vorticity);
 /// sequential for absolute heights, speed and strain; otherwise diverging
 /// when the 2nd and 98th percentiles have opposite signs.
 /// Throws InputError ("PATH: variable V: problem") when the file cannot be
 /// read, the variable is missing (the message lists the drawable ones), its
-/// layout is not (..., lat, lon) with lat/lon CF coordinates, a coordinate is
-/// not monotonic, u or v do not share the field's grid, or every cell of the
-/// step is missing; UsageError when REQUEST.time is beyond the last step,
-/// the field is a flag variable (flag_masks/flag_values), or arrows are
-/// requested from a file without u and v.
+/// layout is not (..., lat, lon) with lat/lon CF coordinates nor a projected
+/// or curvilinear grid, a coordinate is not monotonic, the grid mapping is
+/// unknown or inconsistent, u or v do not share the field's grid, or every
+/// cell of the step is missing; UsageError when REQUEST.time is beyond the
+/// last step, the field is a flag variable (flag_masks/flag_values), or
+/// arrows are requested from a file without u and v.
 MapData read_map_data(const std::string& path, const MapRequest& request);
 
 /// A map region in degrees. lon0 < lon1 <= lon0 + 360 (lon1 may exceed 180
@@ -187,6 +229,23 @@ struct PixelBox {
   int x = 0, y = 0, width = 0, height = 0;
 };
 
+/// The part of a projected or curvilinear grid drawn: grid coordinates at
+/// the left/right (c) and bottom/top (r) edges of the map; x/y in metres for
+/// a projected grid; for 2-D latitude/longitude the column/row indices, each
+/// negated when the grid is drawn flipped (columns running west, or rows
+/// running south, at the centre node), so that east is right and north up.
+struct GridWindow {
+  double c0 = 0.0, c1 = 0.0;  ///< left, right edge (c0 < c1)
+  double r0 = 0.0, r1 = 0.0;  ///< bottom, top edge (r0 < r1)
+};
+
+/// One current arrow as drawn.
+struct DrawnArrow {
+  double x = 0.0, y = 0.0;    ///< centre (pixels)
+  double dx = 0.0, dy = 0.0;  ///< unit direction on the page (x right, y down)
+  double speed = 0.0;         ///< sqrt(u^2 + v^2) (units of u)
+};
+
 /// What was drawn, for messages and tests.
 struct QuicklookResult {
   int width_px = 0, height_px = 0;  ///< PNG size
@@ -199,13 +258,28 @@ struct QuicklookResult {
   double arrow_reference = 0.0;  ///< speed of the legend arrow (u units); 0 without arrows
   std::size_t arrow_count = 0;   ///< arrows drawn
   bool ascii_text = false;       ///< no font found: Cairo's built-in font, ASCII labels
+  std::vector<DrawnArrow> arrows;          ///< the arrows drawn (arrow_count of them)
+  GridKind grid_kind = GridKind::lat_lon;  ///< as MapData::grid_kind
+  /// Projected/curvilinear maps: the window drawn. `region` then holds the
+  /// latitude/longitude range of the nodes in the window (for messages).
+  GridWindow window;
+  std::size_t graticule_labels = 0;  ///< graticule labels written
 };
 
 /// Returns the longitude/latitude (degrees) at the centre of pixel (PX, PY)
-/// of a map drawn as RESULT, or NaN for both outside RESULT.map.
+/// of a latitude-longitude map drawn as RESULT, or NaN for both outside
+/// RESULT.map or on a projected/curvilinear map (see pixel_to_grid).
 /// Longitudes follow RESULT.region (may exceed 180 or 360).
 void pixel_to_lonlat(const QuicklookResult& result, int px, int py, double& lon_deg,
                      double& lat_deg);
+
+/// Returns the grid coordinates (C, R as in GridWindow) at the centre of
+/// pixel (PX, PY) of a projected/curvilinear map, NaN outside RESULT.map.
+void pixel_to_grid(const QuicklookResult& result, int px, int py, double& c, double& r);
+
+/// Returns the pixel (column, row) holding grid coordinates (C, R) on a
+/// projected/curvilinear map; it may lie outside RESULT.map.
+void grid_to_pixel(const QuicklookResult& result, double c, double r, int& px, int& py);
 
 /// Returns the pixel (column, row) whose centre is nearest to (LON_DEG,
 /// LAT_DEG) on a map drawn as RESULT; LON_DEG is first shifted by multiples
@@ -215,9 +289,14 @@ void lonlat_to_pixel(const QuicklookResult& result, double lon_deg, double lat_d
 
 /// Draws MAP as a PNG at PNG_PATH: written under a hidden temporary name
 /// (".<name>.tmp-<pid>-<random>") in the same folder, then renamed.
+/// On a projected or curvilinear grid, OPTIONS.region selects the smallest
+/// rectangle of grid cells (in grid coordinates) holding every cell whose
+/// centre lies in the latitude/longitude box; all cells of that rectangle
+/// are drawn.
 /// Throws UsageError for a width outside 320..4096, arrows without u/v in
-/// MAP, or a region that does not overlap the grid; InputError when the
-/// region holds no finite value and MAP holds none either;
+/// MAP, or a region that does not overlap the grid (projected/curvilinear:
+/// no cell centre inside); InputError when the region holds no finite value
+/// and MAP holds none either;
 /// OutputError ("PNG_PATH: problem") when PNG_PATH exists and !force, is a
 /// folder, is the input file, its folder is missing or not writable, or
 /// writing fails (the temporary file is removed; an existing PNG is untouched).

@@ -29,7 +29,8 @@ CLI::App* add_quicklook(CLI::App& app) {
                 "variable to draw (default: speed in a currents file, else the height)");
   c->add_option("--time", qargs.time, "time step, counted from 0")->capture_default_str();
   c->add_option("--region", qargs.region,
-                "LON0,LON1,LAT0,LAT1 in degrees; LON1 < LON0 crosses the seam (default: the grid)");
+                "LON0,LON1,LAT0,LAT1 in degrees; LON1 < LON0 crosses the seam (default: the "
+                "grid); on projected grids the cells whose centres lie inside");
   c->add_option("--range", qargs.range, "A,B: colour range (default: 2nd-98th percentile)");
   c->add_flag("--arrows", qargs.arrows, "current arrows from u and v (currents files)");
   c->add_option("--width", qargs.width, "PNG width in pixels, 320..4096")->capture_default_str();
@@ -66,6 +67,13 @@ int run_quicklook_command() {
                 r.colour_bar.width, r.colour_bar.height, r.region.lon0, r.region.lon1,
                 r.region.lat0, r.region.lat1);
   std::string line = buf;
+  if (r.grid_kind != GridKind::lat_lon) {
+    std::snprintf(buf, sizeof buf, ", %s grid window %.9g..%.9g, %.9g..%.9g", map.grid_name.c_str(),
+                  r.window.c0, r.window.c1, r.window.r0, r.window.r1);
+    line += buf;
+  }
+  std::snprintf(buf, sizeof buf, ", %zu graticule labels", r.graticule_labels);
+  line += buf;
   if (o.arrows) {
     std::snprintf(buf, sizeof buf, ", %zu arrows (reference %.3g %s)", r.arrow_count,
                   r.arrow_reference, map.arrow_units.c_str());

@@ -132,6 +132,30 @@ class ConsoleObserver : public RunObserver {
     }
   }
 
+  void step_finished(const StepResult& r) override {
+    clear();
+    const std::string what =
+        std::string(step_name(r.step.kind)) + " " + std::to_string(r.step.index + 1);
+    const std::string date = r.date.iso();
+    switch (r.status) {
+      case FileStatus::done:
+      case FileStatus::redone: {
+        if (quiet_) break;
+        char secs[32];
+        std::snprintf(secs, sizeof secs, "%.1f s", r.seconds);
+        line(date + " " + what + (r.status == FileStatus::done ? " done: " : " redone: ") +
+             r.step.output + " (" + secs + ")");
+        break;
+      }
+      case FileStatus::skipped:
+        if (!quiet_) line(date + " " + what + " skipped: " + r.step.output + " is complete");
+        break;
+      default:
+        print_error(r.message + " (date " + date + ", " + what + ")");
+        break;
+    }
+  }
+
   void clear() {
     if (drawn_) {
       std::fputs("\r\033[K", stderr);
@@ -172,6 +196,17 @@ std::string summary_text(const JobFile& job, std::size_t dates, const RunTotals&
   part(t.missing_ok, "without input (allowed)");
   part(t.failed_input, "failed (input)");
   part(t.failed_output, "failed (output not written)");
+  std::string steps;
+  auto step_part = [&](std::size_t n, const char* what) {
+    if (n == 0) return;
+    steps += (steps.empty() ? "" : ", ") + std::to_string(n) + " " + what;
+  };
+  step_part(t.steps_done, "done");
+  step_part(t.steps_redone, "redone");
+  step_part(t.steps_skipped, "skipped (complete)");
+  step_part(t.steps_failed_input, "failed (input)");
+  step_part(t.steps_failed_output, "failed (output not written)");
+  if (!steps.empty()) parts += (parts.empty() ? "" : "; ") + std::string("steps: ") + steps;
   const std::size_t finished =
       t.done + t.redone + t.skipped + t.missing_ok + t.failed_input + t.failed_output;
   if (t.stop_signal != 0)
@@ -220,8 +255,14 @@ int run_run_command() {
     for (const PlanItem& it : make_plan(job, dates, rargs.force)) {
       char act[16];
       std::snprintf(act, sizeof act, "%-10s", action_name(it.action));
-      std::printf("%s  %s  %s -> %s\n", it.date.iso().c_str(), act, it.input.c_str(),
-                  it.output.c_str());
+      // Steps follow on the same line ("  + quicklook 1 run -> PNG"), so that
+      // each day stays one line for scripts.
+      std::string steps;
+      for (const StepPlan& p : it.steps)
+        steps += std::string("  + ") + step_name(p.kind) + " " + std::to_string(p.index + 1) + " " +
+                 action_name(p.action) + " -> " + p.output;
+      std::printf("%s  %s  %s -> %s%s\n", it.date.iso().c_str(), act, it.input.c_str(),
+                  it.output.c_str(), steps.c_str());
     }
     return 0;
   }
