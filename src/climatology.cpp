@@ -608,6 +608,12 @@ void adopt_or_check(ClimatologyState& state, const std::string& path, const Clim
   probe.first_input = path;
   if (state.empty()) {
     probe.records.assign(period_count(job.period), PeriodRecord{});
+    // 64 B per cell and period (MomentGrid) and the output's copy (resources.hpp).
+    require_memory(2.0 * 64.0 * static_cast<double>(period_count(job.period)) *
+                       static_cast<double>(info.ny) * static_cast<double>(info.nx),
+                   "the moments of " + std::to_string(period_count(job.period)) + " period(s) x " +
+                       std::to_string(info.ny) + " x " + std::to_string(info.nx) + " cells",
+                   path, info.variable);
     probe.moments = MomentGrid(period_count(job.period), info.ny * info.nx);
     state = std::move(probe);
     return;
@@ -1682,6 +1688,9 @@ ClimatologyState read_partial(const std::string& path) {
     c.dim = dname;
     c.nc_type = NC_DOUBLE;
     c.attrs = read_attributes(id, varid);
+    require_memory(32.0 * static_cast<double>(len),  // resources.hpp: declared size, 4 copies
+                   "coordinate " + name + " of " + std::to_string(len) + " declared values", path,
+                   name);
     c.values.resize(len);
     check(nc_get_var_double(id, varid, c.values.data()), name, "reading coordinate values");
     return c;
@@ -1690,6 +1699,11 @@ ClimatologyState read_partial(const std::string& path) {
   st.lon = read_coord(text_of("partial_longitude"));
   const std::size_t P = period_count(st.period);
   const std::size_t ny = st.lat.values.size(), nx = st.lon.values.size(), C = ny * nx;
+  require_memory(2.0 * 64.0 * static_cast<double>(P) * static_cast<double>(ny) *
+                     static_cast<double>(nx),  // MomentGrid and the merged copy (resources.hpp)
+                 "the moments of " + std::to_string(P) + " period(s) x " + std::to_string(ny) +
+                     " x " + std::to_string(nx) + " cells",
+                 path, "");
   st.moments = MomentGrid(P, C);
   for (std::size_t k = 0; k < std::size(partial_arrays); ++k) {
     const char* name = partial_arrays[k].name;

@@ -664,6 +664,9 @@ MapData read_height(const std::string& path, const std::string& variable, const 
   d.time_steps = in.nt;
   if (t >= in.nt) throw UsageError(input_message(path, in.variable, time_beyond(t, in.nt)));
   d.time_index = t;
+  require_memory(24.0 * static_cast<double>(in.ny) * static_cast<double>(in.nx),  // map + copies
+                 "the map of " + std::to_string(in.ny) + " x " + std::to_string(in.nx) + " cells",
+                 path, in.variable);
   reader->read_rows(t, 0, in.ny, d.values);
   if (in.time) {
     try {
@@ -808,6 +811,10 @@ MapData read_other(const NcFile& f, const std::string& name, std::size_t t) {
   }
   d.time_index = t;
   d.time_steps = l.nt;
+  require_memory(24.0 * static_cast<double>(l.lat.size()) * static_cast<double>(l.lon.size()),
+                 "the map of " + std::to_string(l.lat.size()) + " x " +
+                     std::to_string(l.lon.size()) + " cells",
+                 f.path(), name);
   d.values = read_step(f, *var, l, t);
   d.date = step_date(f, l, t);
   d.scale = known_scale(name, text_att(f.id(), var->id, "standard_name"))

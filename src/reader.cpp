@@ -20,7 +20,10 @@
 
 #include "seatilt/reader.hpp"
 
+#include <hdf5.h>
 #include <netcdf.h>
+#include <netcdf_mem.h>
+#include <sys/stat.h>
 #include <udunits2.h>
 
 #include <algorithm>
@@ -32,12 +35,14 @@
 #include <filesystem>
 #include <limits>
 #include <mutex>
+#include <set>
 #include <sstream>
 #include <stdexcept>
 #include <utility>
 
 #include "seatilt/chunkio.hpp"
 #include "seatilt/error.hpp"
+#include "seatilt/resources.hpp"
 
 namespace seatilt {
 
@@ -67,6 +72,49 @@ std::string join(const std::vector<std::string>& items, const char* sep) {
 }
 
 std::string nc_message(int status) { return nc_strerror(status); }
+
+// Text from a file made printable for a one-line message: control bytes and
+// bytes that are not part of a well-formed UTF-8 sequence (RFC 3629: no
+// overlongs, no surrogates, at most U+10FFFF) become '?'.
+std::string printable(const std::string& s) {
+  std::string out;
+  out.reserve(s.size());
+  const auto byte = [&](std::size_t k) { return static_cast<unsigned char>(s[k]); };
+  for (std::size_t k = 0; k < s.size();) {
+    const unsigned char c = byte(k);
+    if (c < 0x80) {
+      out += c < 0x20 || c == 0x7f ? '?' : static_cast<char>(c);
+      ++k;
+      continue;
+    }
+    std::size_t n = 0;
+    unsigned char lo = 0x80, hi = 0xbf;  // allowed range of the second byte
+    if (c >= 0xc2 && c <= 0xdf) {
+      n = 1;
+    } else if (c >= 0xe0 && c <= 0xef) {
+      n = 2;
+      if (c == 0xe0) lo = 0xa0;
+      if (c == 0xed) hi = 0x9f;
+    } else if (c >= 0xf0 && c <= 0xf4) {
+      n = 3;
+      if (c == 0xf0) lo = 0x90;
+      if (c == 0xf4) hi = 0x8f;
+    }
+    bool ok = n > 0 && k + n < s.size();  // the n continuation bytes exist
+    for (std::size_t m = 1; ok && m <= n; ++m) {
+      const unsigned char b = byte(k + m);
+      ok = m == 1 ? (b >= lo && b <= hi) : (b >= 0x80 && b <= 0xbf);
+    }
+    if (ok) {
+      out.append(s, k, n + 1);
+      k += n + 1;
+    } else {
+      out += '?';
+      ++k;
+    }
+  }
+  return out;
+}
 
 // ---- CF sea-surface-height standard names [CF standard-name table v83] -----
 
@@ -115,22 +163,57 @@ int type_bits(nc_type t) {
   }
 }
 
+// ---- netCDF handles that must not be closed -------------------------------------
+// netCDF-C 4.9.0 loads the attributes of a netCDF-4 variable at the first
+// query; when that fails half-way in a corrupted file (an HDF5 error, not
+// NC_ENOTATT), the half-built attributes crash nc_close later (a free of an
+// invalid pointer in nc_reclaim_data; found by fuzz/fuzz_metadata, exit 139).
+// Such a handle is left open (its memory is leaked) instead of closed.
+
+std::mutex& poison_mutex() {
+  static std::mutex m;
+  return m;
+}
+std::set<int>& poisoned_ids() {
+  static std::set<int> ids;
+  return ids;
+}
+
+// Returns whether STATUS of an attribute call on NCID is NC_NOERR; notes
+// NCID as not to be closed on any failure but "no such attribute".
+bool att_ok(int ncid, int status) {
+  if (status != NC_NOERR && status != NC_ENOTATT) {
+    std::lock_guard<std::mutex> lock(poison_mutex());
+    poisoned_ids().insert(ncid);
+  }
+  return status == NC_NOERR;
+}
+
+// Closes NCID unless an attribute call on it failed (see above).
+void close_unless_poisoned(int ncid) {
+  {
+    std::lock_guard<std::mutex> lock(poison_mutex());
+    if (poisoned_ids().erase(ncid) > 0) return;
+  }
+  nc_close(ncid);
+}
+
 // Reads attribute NAME of VARID (NC_GLOBAL allowed) as text; nullopt when absent
 // or not text. NC_STRING arrays are joined with ", ".
 std::optional<std::string> text_att(int ncid, int varid, const char* name) {
   nc_type t = NC_NAT;
   std::size_t len = 0;
-  if (nc_inq_att(ncid, varid, name, &t, &len) != NC_NOERR) return std::nullopt;
+  if (!att_ok(ncid, nc_inq_att(ncid, varid, name, &t, &len))) return std::nullopt;
   if (t == NC_CHAR) {
     std::string s(len, '\0');
-    if (len && nc_get_att_text(ncid, varid, name, s.data()) != NC_NOERR) return std::nullopt;
+    if (len && !att_ok(ncid, nc_get_att_text(ncid, varid, name, s.data()))) return std::nullopt;
     // Some writers include the C terminator in the length.
     while (!s.empty() && s.back() == '\0') s.pop_back();
     return s;
   }
   if (t == NC_STRING) {
     std::vector<char*> p(len, nullptr);
-    if (len && nc_get_att_string(ncid, varid, name, p.data()) != NC_NOERR) return std::nullopt;
+    if (len && !att_ok(ncid, nc_get_att_string(ncid, varid, name, p.data()))) return std::nullopt;
     std::vector<std::string> parts;
     for (char* c : p) parts.emplace_back(c ? c : "");
     if (len) nc_free_string(len, p.data());
@@ -146,14 +229,14 @@ std::optional<std::vector<double>> number_att(int ncid, int varid, const char* n
   nc_type t = NC_NAT;
   std::size_t len = 0;
   if (bad) *bad = false;
-  if (nc_inq_att(ncid, varid, name, &t, &len) != NC_NOERR) return std::nullopt;
+  if (!att_ok(ncid, nc_inq_att(ncid, varid, name, &t, &len))) return std::nullopt;
   if (type) *type = t;
   if (!is_numeric_type(t) || len == 0) {
     if (bad) *bad = true;
     return std::vector<double>{};
   }
   std::vector<double> v(len);
-  if (nc_get_att_double(ncid, varid, name, v.data()) != NC_NOERR) {
+  if (!att_ok(ncid, nc_get_att_double(ncid, varid, name, v.data()))) {
     if (bad) *bad = true;
     return std::vector<double>{};
   }
@@ -166,16 +249,16 @@ std::vector<Attribute> copy_attributes(int ncid, int varid) {
   std::vector<Attribute> out;
   int natts = 0;
   if (varid == NC_GLOBAL) {
-    if (nc_inq_natts(ncid, &natts) != NC_NOERR) return out;
-  } else if (nc_inq_varnatts(ncid, varid, &natts) != NC_NOERR) {
+    if (!att_ok(ncid, nc_inq_natts(ncid, &natts))) return out;
+  } else if (!att_ok(ncid, nc_inq_varnatts(ncid, varid, &natts))) {
     return out;
   }
   for (int k = 0; k < natts; ++k) {
     char name[NC_MAX_NAME + 1] = {0};
-    if (nc_inq_attname(ncid, varid, k, name) != NC_NOERR) continue;
+    if (!att_ok(ncid, nc_inq_attname(ncid, varid, k, name))) continue;
     nc_type t = NC_NAT;
     std::size_t len = 0;
-    if (nc_inq_att(ncid, varid, name, &t, &len) != NC_NOERR) continue;
+    if (!att_ok(ncid, nc_inq_att(ncid, varid, name, &t, &len))) continue;
     Attribute a;
     a.name = name;
     a.nc_type = t;
@@ -183,7 +266,7 @@ std::vector<Attribute> copy_attributes(int ncid, int varid) {
       a.text = text_att(ncid, varid, name).value_or("");
     } else if (is_numeric_type(t)) {
       a.values.resize(len);
-      if (len && nc_get_att_double(ncid, varid, name, a.values.data()) != NC_NOERR) continue;
+      if (len && !att_ok(ncid, nc_get_att_double(ncid, varid, name, a.values.data()))) continue;
     } else {
       continue;
     }
@@ -595,12 +678,12 @@ std::size_t external_size(unsigned long long type) {
 }
 
 // Returns the smallest file size (bytes) that holds every value the header of
-// a classic-format file describes, or 0 when it cannot tell (streamed file,
-// unparsable header: then netCDF's own checks are all there is).
-unsigned long long classic_min_size(const std::string& path, int format) {
-  std::unique_ptr<std::FILE, int (*)(std::FILE*)> file(std::fopen(path.c_str(), "rb"), &std::fclose);
+// a classic-format file FILE (positioned at its start) describes, or 0 when it
+// cannot tell (streamed file, unparsable header: then netCDF's own checks are
+// all there is).
+unsigned long long classic_min_size(std::FILE* file, int format) {
   if (!file) return 0;
-  HeaderStream in(file.get());
+  HeaderStream in(file);
   const int count = format == NC_FORMAT_CDF5 ? 8 : 4;
   const int offset = format == NC_FORMAT_CLASSIC ? 4 : 8;
   in.skip(4);  // "CDF" + version
@@ -681,6 +764,127 @@ unsigned long long classic_min_size(const std::string& path, int format) {
     need = std::max(need, end);
   }
   return need;
+}
+
+// ---- header check before netCDF-C parses a classic file -------------------------
+// netCDF-C 4.9.0 trusts the lengths in a classic header: a CDF-5 name length
+// of 2^64 - 1 crashes it (memcpy with a negative size, also in ncdump; found
+// by fuzz/fuzz_metadata), and huge lengths make it allocate gigabytes before
+// it notices the file is short. So the reader walks the header first (same
+// grammar as classic_min_size) and refuses one that is not well formed:
+// unknown tags or types, names longer than NC_MAX_NAME, counts or lengths
+// that do not fit in the bytes that follow, dimension ids out of range.
+
+class BoundedHeader {
+public:
+  BoundedHeader(std::FILE* f, unsigned long long size) : f_(f), left_(size) {}
+  // Reads a big-endian unsigned of BYTES bytes; false past the end.
+  bool uint(int bytes, unsigned long long& v) {
+    v = 0;
+    if (left_ < static_cast<unsigned long long>(bytes)) return false;
+    for (int k = 0; k < bytes; ++k) {
+      const int c = std::fgetc(f_);
+      if (c == EOF) return false;
+      v = (v << 8) | static_cast<unsigned long long>(c);
+    }
+    left_ -= static_cast<unsigned long long>(bytes);
+    return true;
+  }
+  bool skip(unsigned long long bytes) {
+    if (bytes > left_ || bytes > (1ULL << 62) ||
+        std::fseek(f_, static_cast<long>(bytes), SEEK_CUR) != 0)
+      return false;
+    left_ -= bytes;
+    return true;
+  }
+  [[nodiscard]] unsigned long long left() const { return left_; }
+
+private:
+  std::FILE* f_;
+  unsigned long long left_;
+};
+
+// Returns "" when the classic header of FILE (SIZE bytes, at its start, magic
+// "CDF" + VERSION 1, 2 or 5) is well formed, else what is wrong with it.
+std::string classic_header_problem(std::FILE* file, unsigned long long size) {
+  BoundedHeader in(file, size);
+  unsigned long long magic = 0, v = 0;
+  if (!in.uint(4, magic)) return "shorter than its magic number";
+  const unsigned long long version = magic & 0xff;
+  const int count = version == 5 ? 8 : 4;
+  const int offset = version == 1 ? 4 : 8;
+  const unsigned long long max_type = version == 5 ? NC_UINT64 : NC_DOUBLE;
+  if (!in.uint(count, v)) return "ends in numrecs";
+  const auto name = [&](const char* what) -> std::string {
+    unsigned long long n = 0;
+    if (!in.uint(count, n)) return std::string("ends in a ") + what + " name";
+    if (n == 0 || n > NC_MAX_NAME)
+      return std::string("a ") + what + " name has length " + std::to_string(n);
+    // No NUL and no '/' in a name (netCDF-C's API never writes them; a NUL
+    // would make the name "" for every later lookup).
+    for (unsigned long long k = 0; k < n; ++k) {
+      unsigned long long c = 0;
+      if (!in.uint(1, c)) return std::string("a ") + what + " name runs past the end";
+      if (c == 0 || c == '/') return std::string("a ") + what + " name holds a NUL or '/' byte";
+    }
+    if (!in.skip(HeaderStream::pad4(n) - n))
+      return std::string("a ") + what + " name runs past the end";
+    return "";
+  };
+  // A list: ABSENT (0, 0) or TAG followed by a count of items of at least
+  // MIN_BYTES bytes each.
+  const auto list = [&](unsigned long long tag, unsigned long long min_bytes, const char* what,
+                        unsigned long long& n) -> std::string {
+    unsigned long long t = 0;
+    if (!in.uint(4, t) || !in.uint(count, n)) return std::string("ends in the ") + what + " list";
+    if (t == 0 && n == 0) return "";
+    if (t != tag) return std::string("bad tag of the ") + what + " list";
+    if (n > in.left() / min_bytes)
+      return std::string("the ") + what + " list claims " + std::to_string(n) + " entries";
+    return "";
+  };
+  const auto attributes = [&](const char* where) -> std::string {
+    unsigned long long n = 0;
+    std::string p = list(0x0C, 12, where, n);
+    for (unsigned long long a = 0; p.empty() && a < n; ++a) {
+      p = name("attribute");
+      unsigned long long type = 0, nelems = 0;
+      if (p.empty() && (!in.uint(4, type) || !in.uint(count, nelems))) p = "ends in an attribute";
+      const std::size_t bytes = p.empty() ? external_size(type) : 0;
+      if (p.empty() && (type == 0 || type > max_type || bytes == 0))
+        p = "an attribute has type " + std::to_string(type);
+      if (p.empty() && nelems > in.left() / bytes) p = "an attribute's values run past the end";
+      if (p.empty() && !in.skip(HeaderStream::pad4(nelems * bytes)))
+        p = "an attribute's values run past the end";
+    }
+    return p;
+  };
+  unsigned long long ndims = 0, nvars = 0;
+  std::string p = list(0x0A, 8, "dimension", ndims);
+  unsigned long long records = 0;
+  for (unsigned long long d = 0; p.empty() && d < ndims; ++d) {
+    p = name("dimension");
+    if (p.empty() && !in.uint(count, v)) p = "ends in a dimension length";
+    if (p.empty() && v == 0 && ++records > 1) p = "more than one unlimited dimension";
+  }
+  if (p.empty()) p = attributes("global attribute");
+  if (p.empty()) p = list(0x0B, 16, "variable", nvars);
+  for (unsigned long long k = 0; p.empty() && k < nvars; ++k) {
+    p = name("variable");
+    unsigned long long nd = 0;
+    if (p.empty() && !in.uint(count, nd)) p = "ends in a variable";
+    if (p.empty() && (nd > NC_MAX_VAR_DIMS || nd > in.left() / static_cast<unsigned>(count)))
+      p = "a variable has " + std::to_string(nd) + " dimensions";
+    for (unsigned long long j = 0; p.empty() && j < nd; ++j)
+      if (!in.uint(count, v) || v >= ndims) p = "a variable names a dimension that does not exist";
+    if (p.empty()) p = attributes("variable attribute");
+    unsigned long long type = 0;
+    if (p.empty() && !in.uint(4, type)) p = "ends in a variable";
+    if (p.empty() && (type == 0 || type > max_type || external_size(type) == 0))
+      p = "a variable has type " + std::to_string(type);
+    if (p.empty() && (!in.uint(count, v) || !in.uint(offset, v))) p = "ends in a variable";
+  }
+  return p;
 }
 
 // ---- the height-variable layout ---------------------------------------------
@@ -800,26 +1004,42 @@ struct Reader::Impl {
   std::string read_path;
   bool cache_sized = false;  // nc_get_vara path: chunk cache set for the band height
   bool horizontal = false;   // ReaderOptions::horizontal_grids
+  // In memory (Reader::from_memory): the file's bytes, alive until nc_close.
+  std::vector<char> memory;
+  bool in_memory = false;
+  // The file as opened (size, modification time), to notice in-place changes.
+  struct stat opened {};
+  bool watched = false;
+  bool data_checked = false;  // the no-data probe ran (first fetch)
 
   ~Impl() {
     raw.reset();  // HDF5 handle first, then netCDF's
-    if (ncid >= 0) nc_close(ncid);
+    if (ncid >= 0) close_unless_poisoned(ncid);
   }
 
   [[noreturn]] void fail(const std::string& variable, const std::string& problem) const {
-    throw InputError(input_message(info.path, variable, problem));
+    throw InputError(input_message(info.path, printable(variable), printable(problem)));
   }
   void check(int status, const std::string& variable, const std::string& what) const {
     if (status != NC_NOERR) fail(variable, what + ": " + nc_message(status));
   }
 
   void open(const std::string& path);
+  void open_memory(const std::string& name, const void* data, std::size_t size);
+  void after_open(int status, std::FILE* header, unsigned long long size, bool size_known);
+  void check_classic_header(std::FILE* file, unsigned long long size) const;
+  void detect(const ReaderOptions& options);
+  void require_values(double count, double copies, const std::string& variable,
+                      const std::string& what) const;
+  void check_unchanged() const;
+  void check_has_data();
   std::vector<VarSummary> list_variables() const;
   int choose_variable(const std::vector<VarSummary>& vars, const ReaderOptions& options);
   void resolve_kind(const VarSummary& v);
   void resolve_layout(const VarSummary& v, const std::vector<VarSummary>& vars);
   bool resolve_plane(const VarSummary& v, const std::vector<VarSummary>& vars);
   AuxVar read_aux(const VarSummary& c) const;
+  double packing_number(const VarSummary& c, const char* name, double absent) const;
   CoordVar read_coordinate(const VarSummary& c, Axis axis) const;
   void resolve_units(const ReaderOptions& options);
   void resolve_packing();
@@ -831,13 +1051,69 @@ struct Reader::Impl {
   std::string dim_name(int dim) const;
 };
 
+// Refuses a classic file (magic "CDF" 1, 2 or 5) whose header is not well
+// formed, before netCDF-C parses it (see classic_header_problem).
+void Reader::Impl::check_classic_header(std::FILE* file, unsigned long long size) const {
+  if (!file) return;
+  unsigned char magic[4] = {0, 0, 0, 0};
+  const bool classic = std::fread(magic, 1, 4, file) == 4 && magic[0] == 'C' && magic[1] == 'D' &&
+                       magic[2] == 'F' && (magic[3] == 1 || magic[3] == 2 || magic[3] == 5);
+  std::rewind(file);
+  if (!classic) return;
+  const std::string problem = classic_header_problem(file, size);
+  std::rewind(file);
+  if (!problem.empty())
+    fail("", "cannot be opened as netCDF (malformed classic header: " + problem + ")");
+}
+
 void Reader::Impl::open(const std::string& path) {
   info.path = path;
+  {
+    struct stat st {};
+    std::unique_ptr<std::FILE, int (*)(std::FILE*)> file(
+        ::stat(path.c_str(), &st) == 0 && S_ISREG(st.st_mode) ? std::fopen(path.c_str(), "rb")
+                                                              : nullptr,
+        &std::fclose);
+    check_classic_header(file.get(), static_cast<unsigned long long>(st.st_size));
+  }
   int id = -1;
   const int status = nc_open(path.c_str(), NC_NOWRITE, &id);
+  if (status == NC_NOERR) {
+    ncid = id;
+    watched = ::stat(path.c_str(), &opened) == 0;
+  }
+  std::unique_ptr<std::FILE, int (*)(std::FILE*)> file(
+      status == NC_NOERR ? std::fopen(path.c_str(), "rb") : nullptr, &std::fclose);
+  std::error_code ec;
+  const auto have = status == NC_NOERR ? std::filesystem::file_size(path, ec) : 0;
+  after_open(status, file.get(), have, !ec);
+}
+
+void Reader::Impl::open_memory(const std::string& name, const void* data, std::size_t size) {
+  info.path = name;
+  in_memory = true;
+  if (size == 0 || data == nullptr) fail("", "cannot be opened as netCDF (no bytes)");
+  memory.assign(static_cast<const char*>(data), static_cast<const char*>(data) + size);
+  {
+    std::unique_ptr<std::FILE, int (*)(std::FILE*)> file(::fmemopen(memory.data(), size, "rb"),
+                                                         &std::fclose);
+    check_classic_header(file.get(), size);
+  }
+  int id = -1;
+  const int status = nc_open_mem(name.c_str(), NC_NOWRITE, size, memory.data(), &id);
+  if (status == NC_NOERR) ncid = id;
+  std::unique_ptr<std::FILE, int (*)(std::FILE*)> file(
+      status == NC_NOERR ? ::fmemopen(memory.data(), size, "rb") : nullptr, &std::fclose);
+  after_open(status, file.get(), size, true);
+}
+
+// The checks after nc_open/nc_open_mem returned STATUS: the format, and for
+// the classic formats the size (SIZE bytes when SIZE_KNOWN) against what the
+// header (read from HEADER) describes.
+void Reader::Impl::after_open(int status, std::FILE* header, unsigned long long size,
+                              bool size_known) {
   if (status != NC_NOERR)
     fail("", "cannot be opened as netCDF (" + nc_message(status) + ")");
-  ncid = id;
   int format = 0;
   check(nc_inq_format(ncid, &format), "", "cannot read the file format");
   switch (format) {
@@ -849,14 +1125,74 @@ void Reader::Impl::open(const std::string& path) {
     default: info.format = "unknown"; break;
   }
   if (format == NC_FORMAT_CLASSIC || format == NC_FORMAT_64BIT_OFFSET || format == NC_FORMAT_CDF5) {
-    const unsigned long long need = classic_min_size(path, format);
-    std::error_code ec;
-    const auto have = std::filesystem::file_size(path, ec);
-    if (!ec && need > 0 && have < need)
-      fail("", "file is truncated (" + std::to_string(have) + " bytes; its header describes " +
+    const unsigned long long need = classic_min_size(header, format);
+    if (size_known && need > 0 && size < need)
+      fail("", "file is truncated (" + std::to_string(size) + " bytes; its header describes " +
                    std::to_string(need) + ")");
   }
   info.global_attrs = copy_attributes(ncid, NC_GLOBAL);
+}
+
+// Refuses (resources.hpp) before COUNT values of VARIABLE are held as
+// doubles COPIES times over.
+void Reader::Impl::require_values(double count, double copies, const std::string& variable,
+                                  const std::string& what) const {
+  try {
+    require_memory(count * 8.0 * copies, what, info.path, variable,
+                   "the declared dimensions are implausible or the machine too small");
+  } catch (const InputError& e) {
+    throw InputError(printable(e.what()));
+  }
+}
+
+// Throws when the file on disk was modified in place since it was opened:
+// same file (device, inode) with another size or modification time. A file
+// replaced by rename is another inode, and the one opened is still read
+// whole; a deleted one too.
+void Reader::Impl::check_unchanged() const {
+  if (!watched) return;
+  struct stat now {};
+  if (::stat(info.path.c_str(), &now) != 0) return;
+  if (now.st_dev != opened.st_dev || now.st_ino != opened.st_ino) return;
+  if (now.st_size != opened.st_size || now.st_mtim.tv_sec != opened.st_mtim.tv_sec ||
+      now.st_mtim.tv_nsec != opened.st_mtim.tv_nsec)
+    fail(info.variable,
+         "the file changed while it was being read (" +
+             (now.st_size != opened.st_size
+                  ? "its size went from " + std::to_string(opened.st_size) + " to " +
+                        std::to_string(now.st_size) + " bytes"
+                  : std::string("its modification time changed")) +
+             "); values read may be torn, so the input is refused: rerun once the file is "
+             "complete (replace inputs by rename, not in place)");
+}
+
+// netCDF-4: refuses a height variable with no stored data at all (HDF5
+// storage size 0: no chunk was ever written), whose every cell would be
+// missing; declared grids of any size are refused at once instead of being
+// read as fill. Any HDF5 failure leaves the question open (no refusal).
+void Reader::Impl::check_has_data() {
+  data_checked = true;
+  if (in_memory || (info.format != "netCDF-4" && info.format != "netCDF-4 classic model")) return;
+  hsize_t stored = 1;
+  bool known = false;
+  H5E_BEGIN_TRY {
+    const hid_t file = H5Fopen(info.path.c_str(), H5F_ACC_RDONLY, H5P_DEFAULT);
+    if (file >= 0) {
+      const hid_t ds = H5Dopen2(file, info.variable.c_str(), H5P_DEFAULT);
+      if (ds >= 0) {
+        stored = H5Dget_storage_size(ds);
+        known = true;
+        H5Dclose(ds);
+      }
+      H5Fclose(file);
+    }
+  }
+  H5E_END_TRY;
+  if (known && stored == 0)
+    fail(info.variable,
+         "holds no data: none of its " + std::to_string(info.nt) + " x " +
+             std::to_string(info.ny) + " x " + std::to_string(info.nx) +
+             " declared values was ever written (every cell would be missing)");
 }
 
 std::size_t Reader::Impl::dim_length(int dim) const {
@@ -1012,6 +1348,9 @@ CoordVar Reader::Impl::read_coordinate(const VarSummary& c, Axis axis) const {
   const std::size_t n = dim_length(c.dims[0]);
   if (n == 0) fail(c.name, "dimension " + out.dim + " is empty");
   if (!is_numeric_type(c.type)) fail(c.name, "coordinate variable is not numeric");
+  // Held about 4 times over: here, in the grid (degrees and radians), in the output.
+  require_values(static_cast<double>(n), 4.0, c.name,
+                 "coordinate " + c.name + " of " + std::to_string(n) + " declared values");
   out.values.resize(n);
   check(nc_get_var_double(ncid, c.id, out.values.data()), c.name, "cannot read coordinate values");
 
@@ -1024,8 +1363,8 @@ CoordVar Reader::Impl::read_coordinate(const VarSummary& c, Axis axis) const {
     if (std::find(fills.begin(), fills.end(), v) != fills.end())
       fail(c.name, "coordinate contains missing values");
 
-  const double sf = number_att(ncid, c.id, "scale_factor").value_or(std::vector<double>{1.0}).at(0);
-  const double ao = number_att(ncid, c.id, "add_offset").value_or(std::vector<double>{0.0}).at(0);
+  const double sf = packing_number(c, "scale_factor", 1.0);
+  const double ao = packing_number(c, "add_offset", 0.0);
   if (sf != 1.0 || ao != 0.0)
     for (double& v : out.values) v = v * sf + ao;
 
@@ -1137,6 +1476,17 @@ void Reader::Impl::resolve_layout(const VarSummary& v, const std::vector<VarSumm
   }
 }
 
+// scale_factor or add_offset of a coordinate [CF 8.1]: ABSENT when missing;
+// refused when not one finite number (a text or empty attribute, NaN).
+double Reader::Impl::packing_number(const VarSummary& c, const char* name, double absent) const {
+  bool bad = false;
+  const auto a = number_att(ncid, c.id, name, &bad);
+  if (!a) return absent;
+  if (bad || a->empty() || !std::isfinite(a->front()))
+    fail(c.name, std::string("attribute ") + name + " is not a finite number");
+  return a->front();
+}
+
 // ---- projected and curvilinear grids (reader.hpp; docs/projected.md) -----------------
 
 AuxVar Reader::Impl::read_aux(const VarSummary& c) const {
@@ -1145,6 +1495,10 @@ AuxVar Reader::Impl::read_aux(const VarSummary& c) const {
   a.nc_type = c.type;
   a.attrs = copy_attributes(ncid, c.id);
   if (!is_numeric_type(c.type)) fail(c.name, "is not numeric");
+  double declared = 1.0;  // as a double first: the product of dimensions may exceed 2^64
+  for (int d : c.dims) declared *= static_cast<double>(dim_length(d));
+  // Held about 3 times over: here, in the grid's node positions, in the output.
+  require_values(declared, 3.0, c.name, "2-D coordinate " + c.name + " " + dims_text(c.dims));
   std::size_t n = 1;
   for (int d : c.dims) n *= dim_length(d);
   a.values.resize(n);
@@ -1154,8 +1508,8 @@ AuxVar Reader::Impl::read_aux(const VarSummary& c) const {
   std::vector<double> fills;
   for (const char* name : {"_FillValue", "missing_value"})
     if (auto f = number_att(ncid, c.id, name)) fills.insert(fills.end(), f->begin(), f->end());
-  const double sf = number_att(ncid, c.id, "scale_factor").value_or(std::vector<double>{1.0}).at(0);
-  const double ao = number_att(ncid, c.id, "add_offset").value_or(std::vector<double>{0.0}).at(0);
+  const double sf = packing_number(c, "scale_factor", 1.0);
+  const double ao = packing_number(c, "add_offset", 0.0);
   for (double& x : a.values) {
     if (std::find(fills.begin(), fills.end(), x) != fills.end() || !std::isfinite(x))
       x = std::numeric_limits<double>::quiet_NaN();
@@ -1269,6 +1623,8 @@ bool Reader::Impl::resolve_plane(const VarSummary& v, const std::vector<VarSumma
       CoordVar cv;
       cv.dim = dim_name(dim);
       cv.nc_type = NC_INT;
+      require_values(static_cast<double>(dim_length(dim)), 4.0, v.name,
+                     "index coordinate of dimension " + cv.dim + " " + dims_text({dim}));
       cv.values.resize(dim_length(dim));
       for (std::size_t k = 0; k < cv.values.size(); ++k) cv.values[k] = static_cast<double>(k);
       return cv;
@@ -1536,23 +1892,39 @@ void FetchedRows::run_task(std::size_t k) const {
 
 // ---- Reader -------------------------------------------------------------------------
 
+void Reader::Impl::detect(const ReaderOptions& options) {
+  const auto vars = list_variables();
+  varid = choose_variable(vars, options);
+  const VarSummary& v = vars[static_cast<std::size_t>(varid)];
+  info.variable = v.name;
+  info.storage_type = v.type;
+  if (!is_numeric_type(v.type)) fail(v.name, "is not a numeric variable");
+  resolve_kind(v);
+  horizontal = options.horizontal_grids;
+  resolve_layout(v, vars);
+  resolve_units(options);
+  resolve_packing();
+  info.variable_attrs = copy_attributes(ncid, varid);
+  if (in_memory)
+    read_path = "netCDF-C (in memory)";
+  else
+    open_raw(options);
+}
+
+Reader::Reader() : impl_(std::make_unique<Impl>()) {}
+
 Reader::Reader(const std::string& path, const ReaderOptions& options)
     : impl_(std::make_unique<Impl>()) {
-  Impl& m = *impl_;
-  m.open(path);
-  const auto vars = m.list_variables();
-  m.varid = m.choose_variable(vars, options);
-  const VarSummary& v = vars[static_cast<std::size_t>(m.varid)];
-  m.info.variable = v.name;
-  m.info.storage_type = v.type;
-  if (!is_numeric_type(v.type)) m.fail(v.name, "is not a numeric variable");
-  m.resolve_kind(v);
-  m.horizontal = options.horizontal_grids;
-  m.resolve_layout(v, vars);
-  m.resolve_units(options);
-  m.resolve_packing();
-  m.info.variable_attrs = copy_attributes(m.ncid, m.varid);
-  m.open_raw(options);
+  impl_->open(path);
+  impl_->detect(options);
+}
+
+Reader Reader::from_memory(const std::string& name, const void* data, std::size_t size,
+                           const ReaderOptions& options) {
+  Reader r;
+  r.impl_->open_memory(name, data, size);
+  r.impl_->detect(options);
+  return r;
 }
 
 Reader::~Reader() = default;
@@ -1587,6 +1959,7 @@ void Reader::fetch_rows(std::size_t t, std::size_t j0, std::size_t nrows, Fetche
     f.is_raw = false;
     return;
   }
+  if (!m.data_checked) m.check_has_data();
 
   const std::size_t nd = m.roles.size();
   std::vector<std::size_t> start(nd, 0), count(nd, 1);
@@ -1604,14 +1977,19 @@ void Reader::fetch_rows(std::size_t t, std::size_t j0, std::size_t nrows, Fetche
     try {
       m.raw->fetch(std::vector<std::size_t>(start.begin(), start.end() - 2), j0, nrows, f.raw);
     } catch (const std::exception& e) {
+      m.check_unchanged();  // a file cut short while read: say so
       failed(e.what());
     }
+    m.check_unchanged();
     return;
   }
   if (!m.cache_sized) m.size_chunk_cache(nrows);
   // The hyperslab is row-major nrows x nx, the layout of Field.
   f.plain.resize(nrows * info.nx);
   const int status = nc_get_vara_double(m.ncid, m.varid, start.data(), count.data(), f.plain.data());
+  // After the read: any change before or during it shows in the size or the
+  // modification time (netCDF-C zero-fills reads past a classic file's end).
+  m.check_unchanged();
   if (status != NC_NOERR) failed(nc_message(status));
 }
 

@@ -1073,6 +1073,8 @@ SectionSummary run_sections(const SectionJob& job) {
     std::size_t nrows = 0;
     for (std::size_t j = 0; j < in.ny; ++j)
       if (need[j]) slot[j] = nrows++;
+    require_memory(16.0 * static_cast<double>(nrows) * static_cast<double>(in.nx),  // block + run
+                   "the " + std::to_string(nrows) + " rows the sections cross", in.path, in.variable);
     Field block(nrows, in.nx, nan), run;
     for (std::size_t t = 0; t < in.nt; ++t) {
       for (std::size_t j = 0; j < in.ny;) {

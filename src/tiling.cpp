@@ -816,6 +816,12 @@ AuxVar output_aux(const std::optional<AuxVar>& in, const std::vector<double>& va
 CurrentsSummary run_currents_plane(const CurrentsJob& job, Reader& reader, WriterSettings ws,
                                    std::optional<Writer>& pending) {
   const HeightInfo& info = reader.info();
+  // Node positions and metrics (48 B/node, grid.hpp), copies of 2-D lat/lon, one band row.
+  require_memory(112.0 * static_cast<double>(info.ny) * static_cast<double>(info.nx) +
+                     band_pipeline_bytes(info.nx, 1, 0),
+                 "the grid of " + std::to_string(info.ny) + " x " + std::to_string(info.nx) +
+                     " nodes",
+                 job.input, info.variable);
   const CurvilinearGrid grid = make_curvilinear_grid(info, job.options.earth);
   const CurvilinearGeostrophicKernel kernel(grid, job.options);
   const CurvilinearKinematicsKernel kinematics(grid, job.options.order, job.options.coast);
@@ -993,6 +999,10 @@ CurrentsSummary run_currents_unpublished(const CurrentsJob& job, std::optional<W
     rows = std::min(rows, std::max(align, efficient / align * align));
   }
 
+  // Refuse before any band is allocated (resources.hpp; docs/hardening.md).
+  require_memory(band_pipeline_bytes(nx, rows, hv + hd) + 32.0 * static_cast<double>(ny + nx),
+                 "row bands of " + std::to_string(rows) + " x " + std::to_string(nx) + " cells",
+                 job.input, info.variable, job.band_rows > 0 ? "try a smaller --rows" : "");
   Recycler::get().set_limit(job.memory_bytes);
   const VelocityStepOf<GeostrophicKernel> velocity_step(kernel);
   const KinematicsStepOf<KinematicsKernel> kinematics_step(kinematics);

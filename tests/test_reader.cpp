@@ -10,6 +10,7 @@
 #include <cstdlib>
 #include <filesystem>
 #include <fstream>
+#include <iterator>
 #include <limits>
 #include <string>
 #include <vector>
@@ -727,4 +728,191 @@ TEST_CASE("unsupported dimension orders are rejected naming the dimensions") {
   }
   const std::string e2 = error_of(extra);
   CHECK(contains(e2, "unsupported dimensions (depth=2, lat=3, lon=4): depth has size 2 and is not time"));
+}
+
+// ---- hardening (issue #9, docs/hardening.md) ----------------------------------------
+
+namespace {
+std::vector<char> bytes_of(const std::string& path) {
+  std::ifstream in(path, std::ios::binary);
+  return std::vector<char>(std::istreambuf_iterator<char>(in), std::istreambuf_iterator<char>());
+}
+void write_bytes(const std::string& path, const std::vector<char>& b) {
+  std::ofstream(path, std::ios::binary).write(b.data(), static_cast<std::streamsize>(b.size()));
+}
+std::string memory_error_of(const std::vector<char>& b) {
+  try {
+    Reader r = Reader::from_memory("mem.nc", b.data(), b.size(), {});
+    Field f;
+    r.read_rows(0, 0, r.info().ny, f);
+  } catch (const InputError& e) {
+    return e.what();
+  } catch (const std::exception& e) {
+    return std::string("unexpected exception type: ") + e.what();
+  }
+  return "no error";
+}
+}  // namespace
+
+TEST_CASE("from_memory detects and reads exactly as from a file, in every format") {
+  TempDir dir;
+  for (int cmode : {0, NC_64BIT_OFFSET, NC_64BIT_DATA, NC_NETCDF4, NC_NETCDF4 | NC_CLASSIC_MODEL}) {
+    CAPTURE(cmode);
+    const std::string path = dir.file("m.nc");
+    simple_file(path, cmode, "zos", "sea_surface_height_above_mean_sea_level", "cm");
+    Reader disk(path, {});
+    const std::vector<char> b = bytes_of(path);
+    Reader mem = Reader::from_memory("copy.nc", b.data(), b.size(), {});
+    CHECK(mem.info().path == "copy.nc");
+    CHECK(mem.info().variable == "zos");
+    CHECK(mem.info().format == disk.info().format);
+    CHECK(mem.info().to_metres_scale == disk.info().to_metres_scale);
+    CHECK(mem.info().lat.values == disk.info().lat.values);
+    CHECK(mem.read_path() == "netCDF-C (in memory)");
+    Field a, c;
+    disk.read_rows(0, 0, 3, a);
+    mem.read_rows(0, 0, 3, c);
+    CHECK(a.data == c.data);
+  }
+  CHECK(contains(memory_error_of({}), "mem.nc: cannot be opened as netCDF (no bytes)"));
+  CHECK(contains(memory_error_of({'n', 'o', 'p', 'e'}), "mem.nc: cannot be opened as netCDF"));
+}
+
+TEST_CASE("a classic header with impossible lengths is refused before netCDF-C parses it") {
+  // netCDF-C 4.9.0 (ncdump too) aborts on a CDF-5 name length of 2^64 - 1
+  // (fuzz/fuzz_metadata finding); the header walk refuses it first.
+  TempDir dir;
+  const std::string path = dir.file("cdf5.nc");
+  simple_file(path, NC_64BIT_DATA, "adt", "sea_surface_height_above_geoid");
+  std::vector<char> b = bytes_of(path);
+  // CDF-5 header: magic(4) numrecs(8) NC_DIMENSION(4) at 12, count(8), then the first
+  // dimension's name length (8 bytes, big-endian) at offset 24.
+  REQUIRE(b.size() > 40);
+  CHECK(b[15] == 0x0A);
+  for (std::size_t k = 24; k < 32; ++k) b[k] = static_cast<char>(0xFF);
+  write_bytes(path, b);
+  CHECK(contains(error_of(path), path + ": cannot be opened as netCDF (malformed classic header: "
+                                        "a dimension name has length 18446744073709551615)"));
+  CHECK(contains(memory_error_of(b), "malformed classic header"));
+
+  // CDF-1: an attribute claiming more values than the file holds.
+  const std::string one = dir.file("cdf1.nc");
+  {
+    NcBuilder nb(one, 0);
+    nb.text(NC_GLOBAL, "title", "abc");
+  }
+  std::vector<char> c = bytes_of(one);
+  // magic(4) numrecs(4) ABSENT dims(8) NC_ATTRIBUTE(4) count(4) name len(4)
+  // "titl"... "e" padded (8) type(4) nelems(4) at offset 40.
+  REQUIRE(c.size() >= 48);
+  CHECK(c[43] == 3);
+  c[40] = 0x7F;
+  write_bytes(one, c);
+  CHECK(contains(error_of(one), "malformed classic header: an attribute's values run past the end"));
+  // The unmodified layouts of every classic flavour pass the walk (above and
+  // in every other test of this file).
+}
+
+TEST_CASE("coordinate packing attributes that are not one finite number are InputErrors") {
+  TempDir dir;
+  for (const char* bad : {"text", "empty", "nan"}) {
+    CAPTURE(bad);
+    const std::string path = dir.file("c.nc");
+    {
+      NcBuilder b(path, NC_NETCDF4);
+      auto [dy, dx] = b.latlon(lat3, lon4);
+      if (std::string(bad) == "text") b.text(0, "scale_factor", "two");
+      if (std::string(bad) == "empty") b.number(0, "scale_factor", NC_DOUBLE, {});
+      if (std::string(bad) == "nan") b.number(1, "add_offset", NC_DOUBLE, {std::nan("")});
+      const int v = b.var("adt", NC_FLOAT, {dy, dx});
+      b.text(v, "standard_name", "sea_surface_height_above_geoid");
+      b.text(v, "units", "m");
+      b.enddef();
+      b.put_latlon();
+      b.put(v, std::vector<double>(12, 0.5));
+    }
+    // Before issue #9 a text scale_factor escaped as std::out_of_range (exit 70).
+    const std::string e = error_of(path);
+    CHECK(contains(e, std::string("variable ") + (std::string(bad) == "nan" ? "lon" : "lat") +
+                          ": attribute "));
+    CHECK(contains(e, "is not a finite number"));
+  }
+}
+
+TEST_CASE("text from the file is shown printable: control bytes and bad UTF-8 as '?'") {
+  TempDir dir;
+  const std::string path = dir.file("u.nc");
+  // "m", an invalid byte, ESC "[31m", a valid UTF-8 degree sign, an overlong "/".
+  simple_file(path, 0, "adt", "sea_surface_height_above_geoid",
+              "m\xff\x1b[31m \xc2\xb0 \xc0\xaf");
+  const std::string e = error_of(path);
+  CHECK(contains(e, "units \"m??[31m \xc2\xb0 ??\" not understood by UDUNITS-2"));
+}
+
+TEST_CASE("a netCDF-4 height variable never written is refused at the first read") {
+  TempDir dir;
+  const std::string path = dir.file("empty4.nc");
+  {
+    NcBuilder b(path, NC_NETCDF4);
+    auto [dy, dx] = b.latlon(lat3, lon4);
+    const int v = b.var("adt", NC_FLOAT, {dy, dx});
+    b.text(v, "standard_name", "sea_surface_height_above_geoid");
+    b.text(v, "units", "m");
+    b.enddef();
+    b.put_latlon();
+  }
+  Reader r(path, {});  // detection alone does not read the data
+  CHECK(r.info().ny == 3);
+  Field f;
+  CHECK_THROWS_WITH_AS(r.read_rows(0, 0, 1, f),
+                       doctest::Contains("variable adt: holds no data: none of its 1 x 3 x 4"),
+                       InputError);
+}
+
+TEST_CASE("an input modified in place while read is refused; one replaced by rename is not") {
+  TempDir dir;
+  const std::string path = dir.file("live.nc");
+  simple_file(path, 0, "adt", "sea_surface_height_above_geoid");
+  Field f;
+  {
+    Reader r(path, {});
+    r.read_rows(0, 0, 3, f);
+    std::ofstream(path, std::ios::binary | std::ios::app) << "more";  // grows in place
+    CHECK_THROWS_WITH_AS(r.read_rows(0, 0, 3, f),
+                         doctest::Contains("the file changed while it was being read (its size "
+                                           "went from"),
+                         InputError);
+  }
+  {
+    simple_file(path, 0, "adt", "sea_surface_height_above_geoid");
+    Reader r(path, {});
+    const std::string other = dir.file("other.nc");
+    simple_file(other, 0, "adt", "sea_surface_height_above_geoid");
+    fs::rename(other, path);  // a new inode at the path; the opened file is unchanged
+    r.read_rows(0, 0, 3, f);
+    CHECK(f.at(2, 3) == 0.25 * 11);
+  }
+}
+
+TEST_CASE("declared coordinates larger than the available memory are refused before reading") {
+  TempDir dir;
+  const std::string path = dir.file("huge.nc");
+  {
+    NcBuilder b(path, NC_NETCDF4);
+    const int dy = b.dim("lat", std::size_t{1} << 33);
+    const int dx = b.dim("lon", 4);
+    const int la = b.var("lat", NC_DOUBLE, {dy});
+    b.text(la, "units", "degrees_north");
+    const int lo = b.var("lon", NC_DOUBLE, {dx});
+    b.text(lo, "units", "degrees_east");
+    const int v = b.var("adt", NC_FLOAT, {dy, dx});
+    b.text(v, "standard_name", "sea_surface_height_above_geoid");
+    b.text(v, "units", "m");
+  }
+  ::setenv("SEATILT_MAX_MEMORY_MB", "1024", 1);
+  const std::string e = error_of(path);
+  ::unsetenv("SEATILT_MAX_MEMORY_MB");
+  CHECK(contains(e, path + ": variable lat: coordinate lat of 8589934592 declared values would "
+                           "need about 256.0 GiB, more than the 1.0 GiB available "
+                           "(SEATILT_MAX_MEMORY_MB)"));
 }

@@ -61,6 +61,7 @@
 #include <vector>
 
 #include "seatilt/grid.hpp"
+#include "seatilt/resources.hpp"  // require_memory: the reader and every command that holds grids
 
 namespace seatilt {
 
@@ -201,8 +202,18 @@ public:
   /// opened (missing, truncated, not netCDF), no or several candidate height
   /// variables exist, the standard_name is the ellipsoidal height, units are
   /// missing/unparsable/not a length, coordinates are missing, non-monotonic
-  /// or non-finite, or the layout is unsupported.
+  /// or non-finite, or the layout is unsupported, or when holding the
+  /// declared coordinates would exceed the available memory (resources.hpp).
+  /// Problems quoting text from the file show control bytes and invalid
+  /// UTF-8 as '?', so that the message stays one printable line.
   Reader(const std::string& path, const ReaderOptions& options);
+  /// Opens the netCDF file held in memory as the SIZE bytes at DATA (copied;
+  /// netCDF-C nc_open_mem), named NAME in messages, with the same detection
+  /// and the same errors as the constructor. Heights are read through
+  /// netCDF-C (raw chunk reads need a file on disk). Throws InputError also
+  /// for SIZE = 0.
+  static Reader from_memory(const std::string& name, const void* data, std::size_t size,
+                            const ReaderOptions& options);
   ~Reader();
   Reader(Reader&&) noexcept;
   Reader& operator=(Reader&&) noexcept;
@@ -215,7 +226,11 @@ public:
   /// Reads rows [j0, j0+nrows) of time step t (t = 0 without time) into
   /// OUT (resized to nrows x nx): metres, NaN where missing (fill,
   /// missing_value, outside valid range, or NaN/Inf in the file).
-  /// Throws InputError on a netCDF read failure (e.g. truncated data);
+  /// Throws InputError on a netCDF read failure (e.g. truncated data), when
+  /// a netCDF-4 height variable holds no data at all (nothing was ever
+  /// written: every cell would be missing), and when the file was modified in
+  /// place (size or modification time changed) since it was opened — a file
+  /// replaced by a rename is still read from the copy that was opened;
   /// std::out_of_range when t >= nt or the rows exceed ny (a caller bug).
   /// nrows = 0 gives an empty OUT.
   void read_rows(std::size_t t, std::size_t j0, std::size_t nrows, Field& out);
@@ -242,6 +257,7 @@ public:
   [[nodiscard]] CivilTime date(std::size_t t) const;
 
 private:
+  Reader();
   struct Impl;
   std::unique_ptr<Impl> impl_;
 };
