@@ -1608,8 +1608,12 @@ class PlaneGraticule {
     ink.font(12.5 * s_);
     const double cap = ink.cap();
     std::size_t count = 0;
-    for (const auto& [edge, is_lon] : order)
+    for (const auto& side : order)
       for (const Candidate& c : found) {
+        // Plain locals, not structured bindings: clang 14 cannot capture
+        // those in the lambdas below (C++17).
+        const auto edge = side.first;
+        const bool is_lon = side.second;
         if (c.edge != edge || c.is_lon != is_lon) continue;
         const double key = is_lon ? std::remainder(c.value, 360.0) : c.value;
         const bool done = std::any_of(labelled.begin(), labelled.end(), [&](const auto& l) {
