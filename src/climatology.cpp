@@ -41,6 +41,7 @@
 #include "seatilt/chunkio.hpp"
 #include "seatilt/diagnostics.hpp"
 #include "seatilt/error.hpp"
+#include "seatilt/writer.hpp"
 #include "seatilt/product.hpp"
 #include "seatilt/tiling.hpp"
 
@@ -894,24 +895,6 @@ std::pair<std::string, std::string> split_path(const std::string& path) {
   return {slash == 0 ? std::string("/") : path.substr(0, slash), path.substr(slash + 1)};
 }
 
-int sync_path(const std::string& p, bool folder) {
-  const int fd = ::open(p.c_str(), (folder ? O_RDONLY | O_DIRECTORY : O_RDONLY) | O_CLOEXEC);
-  if (fd < 0) return errno;
-  int err = 0;
-  if (::fsync(fd) != 0 && errno != EINVAL && errno != EROFS) err = errno;
-  ::close(fd);
-  return err;
-}
-
-int rename_noreplace(const std::string& from, const std::string& to) {
-#ifdef RENAME_NOREPLACE
-  if (::renameat2(AT_FDCWD, from.c_str(), AT_FDCWD, to.c_str(), RENAME_NOREPLACE) == 0) return 0;
-  if (errno != EINVAL && errno != ENOSYS && errno != ENOTSUP) return errno;
-#endif
-  struct stat st {};
-  if (::lstat(to.c_str(), &st) == 0) return EEXIST;
-  return std::rename(from.c_str(), to.c_str()) == 0 ? 0 : errno;
-}
 
 std::uint32_t random_bits() {
   try {

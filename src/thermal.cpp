@@ -37,6 +37,7 @@
 #include <utility>
 
 #include "seatilt/error.hpp"
+#include "seatilt/writer.hpp"
 #include "seatilt/product.hpp"
 #include "seatilt/teos10.hpp"
 
@@ -1198,24 +1199,6 @@ std::uint32_t random_bits() {
   }
 }
 
-int sync_path(const std::string& p, bool folder) {
-  const int fd = ::open(p.c_str(), (folder ? O_RDONLY | O_DIRECTORY : O_RDONLY) | O_CLOEXEC);
-  if (fd < 0) return errno;
-  int err = 0;
-  if (::fsync(fd) != 0 && errno != EINVAL && errno != EROFS) err = errno;
-  ::close(fd);
-  return err;
-}
-
-int rename_noreplace(const std::string& from, const std::string& to) {
-#ifdef RENAME_NOREPLACE
-  if (::renameat2(AT_FDCWD, from.c_str(), AT_FDCWD, to.c_str(), RENAME_NOREPLACE) == 0) return 0;
-  if (errno != EINVAL && errno != ENOSYS && errno != ENOTSUP) return errno;
-#endif
-  struct stat st {};
-  if (::lstat(to.c_str(), &st) == 0) return EEXIST;
-  return std::rename(from.c_str(), to.c_str()) == 0 ? 0 : errno;
-}
 
 bool skipped_coordinate_attribute(const std::string& n) {
   return n.empty() || n[0] == '_' || n == "scale_factor" || n == "add_offset" ||

@@ -145,28 +145,6 @@ std::uint32_t random_bits() {
 
 std::string errno_text(int err) { return std::strerror(err); }
 
-/// fsync of a file or folder; returns 0 or an errno. EINVAL/EROFS (no sync
-/// support, e.g. some special file systems) count as success.
-int sync_path(const std::string& p, bool folder) {
-  const int fd = ::open(p.c_str(), (folder ? O_RDONLY | O_DIRECTORY : O_RDONLY) | O_CLOEXEC);
-  if (fd < 0) return errno;
-  int err = 0;
-  if (::fsync(fd) != 0 && errno != EINVAL && errno != EROFS) err = errno;
-  ::close(fd);
-  return err;
-}
-
-/// rename(2) that fails with EEXIST instead of replacing TO (Linux
-/// renameat2; falls back to check-then-rename where unsupported).
-int rename_noreplace(const std::string& from, const std::string& to) {
-#ifdef RENAME_NOREPLACE
-  if (::renameat2(AT_FDCWD, from.c_str(), AT_FDCWD, to.c_str(), RENAME_NOREPLACE) == 0) return 0;
-  if (errno != EINVAL && errno != ENOSYS && errno != ENOTSUP) return errno;
-#endif
-  struct stat st {};
-  if (::lstat(to.c_str(), &st) == 0) return EEXIST;
-  return std::rename(from.c_str(), to.c_str()) == 0 ? 0 : errno;
-}
 
 struct VarSlot {
   std::string name;
@@ -189,6 +167,30 @@ using StageKey = std::array<std::size_t, 3>;  // var, t, chunk row
 constexpr std::size_t flush_bytes = std::size_t{32} << 20;
 
 }  // namespace
+
+// Atomic publication helpers (writer.hpp).
+// fsync of a file or folder; returns 0 or an errno. EINVAL/EROFS (no sync
+// support, e.g. some special file systems) count as success.
+int sync_path(const std::string& p, bool folder) {
+  const int fd = ::open(p.c_str(), (folder ? O_RDONLY | O_DIRECTORY : O_RDONLY) | O_CLOEXEC);
+  if (fd < 0) return errno;
+  int err = 0;
+  if (::fsync(fd) != 0 && errno != EINVAL && errno != EROFS) err = errno;
+  ::close(fd);
+  return err;
+}
+
+// rename(2) that fails with EEXIST instead of replacing TO (Linux
+// renameat2; falls back to check-then-rename where unsupported).
+int rename_noreplace(const std::string& from, const std::string& to) {
+#ifdef RENAME_NOREPLACE
+  if (::renameat2(AT_FDCWD, from.c_str(), AT_FDCWD, to.c_str(), RENAME_NOREPLACE) == 0) return 0;
+  if (errno != EINVAL && errno != ENOSYS && errno != ENOTSUP) return errno;
+#endif
+  struct stat st {};
+  if (::lstat(to.c_str(), &st) == 0) return EEXIST;
+  return std::rename(from.c_str(), to.c_str()) == 0 ? 0 : errno;
+}
 
 struct Writer::Impl {
   std::string path;      // final output path

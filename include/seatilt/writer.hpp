@@ -125,6 +125,17 @@ struct EncodedRows {
 // Error messages: "PATH: variable V: <nc_strerror> (<action>)" for netCDF
 // failures, "PATH: <problem>" otherwise (PATH = the final path).
 
+/// Publication helpers shared by every command that writes a file through a
+/// temporary sibling (writer, section, profile, climatology).
+/// fsync of a file or, with FOLDER, a folder; returns 0 or an errno.
+/// EINVAL/EROFS (no sync support, e.g. some special file systems) count as
+/// success.
+int sync_path(const std::string& path, bool folder);
+/// rename(2) that fails with EEXIST instead of replacing TO (Linux renameat2
+/// RENAME_NOREPLACE; check-then-rename where unsupported). Returns 0 or an
+/// errno.
+int rename_noreplace(const std::string& from, const std::string& to);
+
 /// Writes one output file. Move-only.
 class Writer {
 public:
